@@ -1,0 +1,46 @@
+"""Pure 2D geometry on numpy arrays and shapely geometries: rings, convex decomposition,
+convex Minkowski sums by edge merge, and outer approximations of circles and rounded offsets."""
+
+from .arcs import circle_sides, circumscribed_polygon, circumscribed_polygons, grow_convex
+from .cuts import cut_caps, split_by_diagonals
+from .decompose import convex_decomposition, merge_faces, triangulate
+from .minkowski import convex_sum, convex_sums, edge_angles
+from .polygons import (
+    REL_NOISE,
+    Rings,
+    canonical_convex,
+    convex_mask,
+    drop_collinear,
+    orient_ccw,
+    ragged_positions,
+    reflect,
+    signed_areas,
+    start_lowest,
+    turns,
+)
+
+__all__ = [
+    "REL_NOISE",
+    "Rings",
+    "canonical_convex",
+    "circle_sides",
+    "circumscribed_polygon",
+    "circumscribed_polygons",
+    "convex_decomposition",
+    "convex_mask",
+    "convex_sum",
+    "convex_sums",
+    "drop_collinear",
+    "edge_angles",
+    "grow_convex",
+    "merge_faces",
+    "cut_caps",
+    "split_by_diagonals",
+    "orient_ccw",
+    "ragged_positions",
+    "reflect",
+    "signed_areas",
+    "start_lowest",
+    "triangulate",
+    "turns",
+]

@@ -1,0 +1,102 @@
+"""One scene file in, its files out: load, plan, verify, render adapters, write atomically.
+
+Hand-off rule for machine-side readers: every adapter file is written first (each atomically),
+the route file last; the route file names each companion file with its sha256, so a reader that
+finds a route file can check it is looking at one consistent set.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+from adapters import AdapterError, enabled_adapters
+
+from .config import Settings
+from .errors import ConfigError, PlanningError, SceneError, format_error
+from .files import atomic_write, output_path, output_stem
+from .plan import PlanCache, PlanResult, plan_scene
+from .routefile import dump_route
+from .scene import load_scene, load_scene_bytes
+
+__all__ = ["JobOutcome", "EXIT_OK", "EXIT_INCOMPLETE", "EXIT_INVALID", "EXIT_FAILED", "run_job",
+           "route_file_name"]
+
+EXIT_OK = 0
+EXIT_INVALID = 2
+EXIT_INCOMPLETE = 3
+EXIT_FAILED = 4  # the planner itself failed (e.g. its route did not pass the safety check)
+
+
+@dataclass
+class JobOutcome:
+    """What happened to one scene file."""
+
+    state: str  # planned | incomplete | invalid | failed
+    exit_code: int
+    message: str | None = None
+    files: list[Path] = field(default_factory=list)
+    result: PlanResult | None = None
+
+
+def route_file_name(stem: str) -> str:
+    return f"{stem}.route.yaml"
+
+
+def run_job(
+    scene_path: Path,
+    out_dir: Path | None,
+    settings: Settings,
+    *,
+    cache: PlanCache | None = None,
+    write: bool = True,
+    data: bytes | None = None,
+) -> JobOutcome:
+    """Plan one scene file; with `write`, put its route and adapter files into `out_dir`.
+
+    `data`: the file's bytes when the caller has read them already (the watcher plans exactly
+    the bytes it hashed and saw settle, never a second read of a file that may have changed).
+    """
+    try:
+        if data is None:
+            scene = load_scene(scene_path, settings)
+        else:
+            scene = load_scene_bytes(data, scene_path.name, settings)
+        adapters = enabled_adapters(settings.adapters) if write else []
+        result = plan_scene(scene, settings, cache=cache)
+    except (SceneError, ConfigError) as exc:
+        return JobOutcome("invalid", EXIT_INVALID, format_error(exc))
+    except PlanningError as exc:
+        return JobOutcome("failed", EXIT_FAILED, f"{scene_path.name}: {format_error(exc)}")
+
+    route = result.route
+    state, code = ("planned", EXIT_OK) if route.status == "complete" else ("incomplete", EXIT_INCOMPLETE)
+    outcome = JobOutcome(state, code, result=result)
+    if not write:
+        return outcome
+
+    out_dir = scene_path.parent if out_dir is None else out_dir
+    stem = output_stem(scene_path)
+    texts: dict[Path, str] = {}
+    try:
+        for adapter in adapters:
+            own = settings.adapter_settings.get(adapter.name, {})
+            texts[output_path(out_dir, stem, adapter.suffix)] = adapter.write(route, own, result)
+    except AdapterError as exc:
+        return JobOutcome("failed", EXIT_FAILED, f"{scene_path.name}: adapter: {exc}")
+
+    companions = {
+        path.name: hashlib.sha256(text.encode("utf-8")).hexdigest() for path, text in texts.items()
+    }
+    if companions:
+        route = replace(route, extra={**route.extra, "files": companions})
+    out_dir.mkdir(parents=True, exist_ok=True)
+    for path, text in texts.items():
+        atomic_write(path, text)
+        outcome.files.append(path)
+    route_path = output_path(out_dir, stem, ".route.yaml")
+    atomic_write(route_path, dump_route(route, result.settings.resolution))
+    outcome.files.append(route_path)
+    outcome.result = replace(result, route=route)
+    return outcome

@@ -1,0 +1,471 @@
+"""Exact Euclidean shortest paths in the free space, on its tangent visibility graph.
+
+A shortest path bends only at convex corners of the obstacles (reflex corners of the free space),
+and only along lines tangent to the obstacle there, so the graph keeps just those corners and the
+mutually visible, bitangent pairs of them. Queries join the two end points to the corners they
+see and run one Dijkstra search. Visibility is always decided by one shapely test: the segment
+must miss `blocked` shrunk inward by `eps` (touching and sliding along obstacle edges is fine).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+import shapely
+from scipy.sparse import csr_matrix
+from scipy.sparse.csgraph import dijkstra
+
+from ._visibility import Triangulation, node_windows, point_windows, triangulate, walk
+from .cspace import FreeSpace
+from .errors import PlanningError
+from .model import Point
+
+__all__ = ["NoPath", "Roadmap", "build_roadmap"]
+
+# Relative size of floating-point noise in a cross product of two unit vectors: a turn smaller
+# than this is a straight line (dimensionless, not a length tolerance).
+_NOISE = 1e-12
+
+_REASONS = {
+    "start-blocked": "the start lies inside a grown obstacle",
+    "end-blocked": "the end lies inside a grown obstacle",
+    "outside-travel": "a point lies outside the travel limits",
+    "disconnected": "no collision-free path joins the two points",
+}
+
+
+class NoPath(PlanningError):
+    """No collision-free path from `a` to `b`; `kind` says why (one of NoPath.KINDS)."""
+
+    KINDS = tuple(_REASONS)
+
+    def __init__(self, kind: str, a: Point, b: Point | None) -> None:
+        if kind not in _REASONS:
+            raise ValueError(f"unknown NoPath kind {kind!r}")
+        self.kind = kind
+        self.a = a
+        self.b = b
+        to = "" if b is None else f" to ({b[0]:g}, {b[1]:g})"
+        super().__init__(f"no collision-free path from ({a[0]:g}, {a[1]:g}){to}: {_REASONS[kind]}")
+
+
+def _cross(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+    return u[..., 0] * v[..., 1] - u[..., 1] * v[..., 0]
+
+
+def _unit(v: np.ndarray) -> np.ndarray:
+    n = np.hypot(v[..., 0], v[..., 1])
+    return v / np.where(n > 0, n, 1.0)[..., None]
+
+
+@dataclass(frozen=True, eq=False)
+class _Corners:
+    """Reflex corners of the free space, one row per occurrence on a ring (a point where two
+    rings touch occurs twice), with the ring neighbours that define the obstacle's tangents;
+    and the pinch points: vertices where the free space narrows to a point (a vertex met more
+    than once on the rings), where a path may pass and turn whatever the corners' shapes."""
+
+    xy: np.ndarray
+    prev: np.ndarray
+    next: np.ndarray
+    pinch: np.ndarray
+
+
+def reflex_corners(region: shapely.Geometry) -> _Corners:
+    """Right turns of the region's rings with the free side on the left (collinear ones dropped)."""
+    empty = _Corners(np.empty((0, 2)), np.empty((0, 2)), np.empty((0, 2)), np.empty((0, 2)))
+    if region.is_empty:
+        return empty
+    rings = shapely.get_rings(shapely.get_parts(shapely.orient_polygons(region)))
+    coords, ring = shapely.get_coordinates(rings, return_index=True)
+    if len(coords) == 0:
+        return empty
+    # drop each ring's closing vertex and any repeated consecutive vertex
+    keep = np.ones(len(coords), dtype=bool)
+    keep[:-1] = ~((ring[1:] == ring[:-1]) & np.all(coords[1:] == coords[:-1], axis=1))
+    last = np.r_[ring[1:] != ring[:-1], True]
+    keep &= ~last
+    coords, ring = coords[keep], ring[keep]
+    starts = np.r_[0, np.flatnonzero(ring[1:] != ring[:-1]) + 1]
+    ends = np.r_[starts[1:], len(coords)]
+    idx = np.arange(len(coords))
+    nxt, prv = idx + 1, idx - 1
+    nxt[ends - 1] = starts
+    prv[starts] = ends - 1
+    d_in = _unit(coords - coords[prv])
+    d_out = _unit(coords[nxt] - coords)
+    right = _cross(d_in, d_out) < -_NOISE
+    uniq, count = np.unique(coords, axis=0, return_counts=True)
+    return _Corners(coords[right], coords[prv][right], coords[nxt][right], uniq[count > 1])
+
+
+def _tangent(at: np.ndarray, prev: np.ndarray, nxt: np.ndarray, other: np.ndarray,
+             tol: float) -> np.ndarray:
+    """Line at-other leaves both ring neighbours of `at` on one closed side (within tol)."""
+    d = _unit(other - at)
+    sp = _cross(d, _unit(prev - at))
+    sn = _cross(d, _unit(nxt - at))
+    return (sp * sn >= 0) | (np.minimum(np.abs(sp), np.abs(sn)) <= tol)
+
+
+@dataclass(eq=False)
+class Roadmap:
+    """Shortest-path queries in one free space; build it with `build_roadmap`."""
+
+    free: FreeSpace
+    nodes: np.ndarray  # (N, 2) corner positions
+    graph: csr_matrix  # (N, N) symmetric, edge weight = Euclidean length
+    stats: dict
+    _tri: Triangulation
+    _shrunk: shapely.Geometry
+    _tol: float
+    _vertex_node: np.ndarray  # triangulation vertex -> node index or -1
+    _corner_ptr: np.ndarray  # triangulation vertex -> its corner occurrences (CSR)
+    _corner_prev: np.ndarray
+    _corner_next: np.ndarray
+    _pinch: np.ndarray  # triangulation vertex -> is a pinch point
+    _tree: shapely.STRtree | None = None
+    _sight_cache: dict = field(default_factory=dict)
+
+    # -- visibility ---------------------------------------------------------------------------
+
+    def visible(self, p: np.ndarray, q: np.ndarray) -> np.ndarray:
+        """Segments p[i]-q[i] that miss the interior of `blocked` (shrunk by eps) and the box's
+        outside: the one visibility test of the road map."""
+        p = np.asarray(p, dtype=float).reshape(-1, 2)
+        q = np.asarray(q, dtype=float).reshape(-1, 2)
+        ok = np.ones(len(p), dtype=bool)
+        if len(p) == 0:
+            return ok
+        box = self.free.box
+        ok &= shapely.intersects_xy(box, p[:, 0], p[:, 1])
+        ok &= shapely.intersects_xy(box, q[:, 0], q[:, 1])
+        if not self._shrunk.is_empty:
+            same = np.all(p == q, axis=1)
+            lines = shapely.linestrings(np.stack([p, q], axis=1))
+            hit = np.zeros(len(p), dtype=bool)
+            hit[~same] = shapely.intersects(self._shrunk, lines[~same])
+            hit[same] = shapely.intersects_xy(self._shrunk, p[same, 0], p[same, 1])
+            ok &= ~hit
+        return ok
+
+    def _classify(self, pts: np.ndarray) -> np.ndarray:
+        """Per point: "" when usable, else "outside-travel" or "blocked"."""
+        out = np.full(len(pts), "", dtype=object)
+        inside = shapely.intersects_xy(self.free.box, pts[:, 0], pts[:, 1])
+        out[~inside] = "outside-travel"
+        if not self._shrunk.is_empty and inside.any():
+            hit = shapely.intersects_xy(self._shrunk, pts[inside, 0], pts[inside, 1])
+            sub = out[inside]
+            sub[hit] = "blocked"
+            out[inside] = sub
+        return out
+
+    def _locate(self, pts: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
+        """Where the walk for each point starts: an origin (the point, or a vertex or region
+        point within eps of it) and the triangles holding that origin."""
+        t = self._tri
+        n = len(pts)
+        origin = pts.copy()
+        located: list[np.ndarray] = [np.empty(0, dtype=np.int64) for _ in range(n)]
+        if len(t.tri) == 0 or n == 0:
+            return origin, located
+        if self._tree is None:
+            self._tree = shapely.STRtree(t.polygons)
+        hit = self._tree.query(shapely.points(pts), predicate="intersects")
+        missing = np.setdiff1d(np.arange(n), hit[0])
+        if len(missing):
+            near = self._tree.query_nearest(shapely.points(pts[missing]), all_matches=False)
+            for i, tri_id in zip(missing[near[0]], near[1], strict=True):
+                line = shapely.shortest_line(t.polygons[tri_id], shapely.Point(pts[i]))
+                origin[i] = shapely.get_coordinates(line)[0]
+            hit = np.concatenate([hit, np.stack([missing[near[0]], near[1]])], axis=1)
+        order = np.argsort(hit[0], kind="stable")
+        hit = hit[:, order]
+        # a point within eps of a triangle vertex looks from that vertex, over its whole fan
+        corners = t.xy[t.tri[hit[1]]]  # (h, 3, 2)
+        gap = np.hypot(*(corners - origin[hit[0]][:, None, :]).transpose(2, 0, 1))
+        close = gap.min(axis=1) <= self.free.eps
+        snapped = np.zeros(n, dtype=bool)
+        for row in np.flatnonzero(close):
+            i = hit[0, row]
+            if snapped[i]:
+                continue
+            v = t.tri[hit[1, row], np.argmin(gap[row])]
+            origin[i] = t.xy[v]
+            located[i] = t.fan_tri[t.fan_ptr[v]:t.fan_ptr[v + 1]]
+            snapped[i] = True
+        bounds = np.searchsorted(hit[0], np.arange(n + 1))
+        for i in np.flatnonzero(~snapped):
+            located[i] = hit[1, bounds[i]:bounds[i + 1]]
+        return origin, located
+
+    def _sight(self, pts: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+        """For each free point: the nodes it sees along a line tangent at the node, and the
+        distances to them. Cached by position (tour costs ask for the same targets often)."""
+        keys = [(float(x), float(y)) for x, y in pts]
+        todo = [i for i, k in enumerate(keys) if k not in self._sight_cache]
+        if todo:
+            sub = pts[todo]
+            origin, located = self._locate(sub)
+            windows, seen_src, seen_v = point_windows(self._tri, origin, located, self._tol)
+            w_src, w_v = walk(self._tri, origin, windows, self._tol)
+            src = np.concatenate([seen_src, w_src])
+            vert = np.concatenate([seen_v, w_v])
+            src, vert = self._tangent_at_node(sub, src, vert)
+            node = self._vertex_node[vert]
+            pair = np.unique(np.stack([src, node], axis=1), axis=0)
+            src, node = pair[:, 0], pair[:, 1]
+            ok = self.visible(sub[src], self.nodes[node])
+            src, node = src[ok], node[ok]
+            dist = np.hypot(*(self.nodes[node] - sub[src]).T)
+            bounds = np.searchsorted(src, np.arange(len(sub) + 1))
+            for j, i in enumerate(todo):
+                s = slice(bounds[j], bounds[j + 1])
+                self._sight_cache[keys[i]] = (node[s], dist[s])
+        return [self._sight_cache[k] for k in keys]
+
+    def _tangent_at_node(self, origin: np.ndarray, src: np.ndarray, vert: np.ndarray
+                         ) -> tuple[np.ndarray, np.ndarray]:
+        """Keep (source, vertex) pairs whose vertex is a node and whose line is tangent there
+        (at any of the node's occurrences on the rings)."""
+        is_node = self._vertex_node[vert] >= 0
+        src, vert = src[is_node], vert[is_node]
+        pinch = self._pinch[vert]
+        keep_src, keep_vert = src[pinch], vert[pinch]
+        src, vert = src[~pinch], vert[~pinch]
+        start = self._corner_ptr[vert]
+        count = self._corner_ptr[vert + 1] - start
+        rec = np.repeat(np.arange(len(vert)), count)
+        pos = np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count) + start[rec]
+        at = self._tri.xy[vert[rec]]
+        ok_occ = _tangent(at, self._corner_prev[pos], self._corner_next[pos], origin[src[rec]],
+                          self._tol)
+        ok = np.zeros(len(vert), dtype=bool)
+        ok[rec[ok_occ]] = True
+        return np.concatenate([keep_src, src[ok]]), np.concatenate([keep_vert, vert[ok]])
+
+    # -- searches -----------------------------------------------------------------------------
+
+    def _check(self, p: np.ndarray, blocked_kind: str, a: Point, b: Point | None) -> None:
+        kind = self._classify(p.reshape(1, 2))[0]
+        if kind == "outside-travel":
+            raise NoPath("outside-travel", a, b)
+        if kind == "blocked":
+            raise NoPath(blocked_kind, a, b)
+
+    def _search(self, a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Dijkstra from free point a over the graph plus a's own edges: distances and
+        predecessors for every node (index N stands for a)."""
+        (a_nodes, a_dist), = self._sight(a.reshape(1, 2))
+        g = self.graph
+        n = g.shape[0]
+        indptr = np.append(g.indptr, g.indptr[-1] + len(a_nodes))
+        aug = csr_matrix(
+            (np.concatenate([g.data, a_dist]), np.concatenate([g.indices, a_nodes]), indptr),
+            shape=(n + 1, n + 1),
+        )
+        dist, pred = dijkstra(aug, directed=True, indices=n, return_predecessors=True)
+        return dist, pred
+
+    def _finish(self, a: np.ndarray, targets: np.ndarray, dist: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray]:
+        """Best length to each target and the node it arrives from (-1: straight from a)."""
+        m = len(targets)
+        best = np.full(m, np.inf)
+        via = np.full(m, -1, dtype=np.int64)
+        kinds = self._classify(targets)
+        usable = np.flatnonzero(kinds == "")
+        if len(usable) == 0:
+            return best, via
+        pts = targets[usable]
+        direct = self.visible(np.repeat(a.reshape(1, 2), len(usable), axis=0), pts)
+        best[usable[direct]] = np.hypot(*(pts[direct] - a).T)
+        sights = self._sight(pts[~direct])
+        for i, (nodes, d) in zip(usable[~direct], sights, strict=True):
+            if len(nodes) == 0:
+                continue
+            total = dist[nodes] + d
+            j = int(np.argmin(total))
+            if np.isfinite(total[j]):
+                best[i] = total[j]
+                via[i] = nodes[j]
+        return best, via
+
+    def _polyline(self, a: np.ndarray, b: np.ndarray, via: int, pred: np.ndarray
+                  ) -> tuple[np.ndarray, float]:
+        chain = []
+        n = self.graph.shape[0]
+        v = via
+        while v >= 0 and v != n:
+            chain.append(v)
+            v = pred[v]
+        pts = np.vstack([a, self.nodes[chain[::-1]], b]) if chain else np.vstack([a, b])
+        pts = _simplify(pts)
+        length = float(np.hypot(*np.diff(pts, axis=0).T).sum())
+        return pts, length
+
+    def path(self, a: Point, b: Point) -> tuple[np.ndarray, float]:
+        """The shortest collision-free polyline from a to b ((k, 2) points, a first, b last)
+        and its length; raises NoPath when there is none."""
+        pa = np.asarray(a, dtype=float).reshape(2)
+        pb = np.asarray(b, dtype=float).reshape(2)
+        self._check(pa, "start-blocked", a, b)
+        self._check(pb, "end-blocked", a, b)
+        if np.array_equal(pa, pb):
+            return np.vstack([pa, pb]), 0.0
+        if self.visible(pa, pb)[0]:
+            return np.vstack([pa, pb]), float(np.hypot(*(pb - pa)))
+        self._sight(np.vstack([pa, pb]))  # one walk for both ends
+        dist, pred = self._search(pa)
+        best, via = self._finish(pa, pb.reshape(1, 2), dist)
+        if not np.isfinite(best[0]):
+            raise NoPath("disconnected", a, b)
+        return self._polyline(pa, pb, int(via[0]), pred)
+
+    def distances_from(self, a: Point, targets: np.ndarray) -> np.ndarray:
+        """Shortest path lengths from a to every target (inf where unreachable), one search.
+
+        Raises NoPath when a itself is outside the travel limits or inside an obstacle."""
+        pa = np.asarray(a, dtype=float).reshape(2)
+        self._check(pa, "start-blocked", a, None)
+        targets = np.asarray(targets, dtype=float).reshape(-1, 2)
+        self._sight(np.vstack([pa, targets[self._classify(targets) == ""]]))
+        dist, _ = self._search(pa)
+        best, _ = self._finish(pa, targets, dist)
+        return best
+
+    def paths_from(self, a: Point, targets: np.ndarray) -> list[tuple[np.ndarray, float] | None]:
+        """Shortest paths from a to every target (None where unreachable), one search."""
+        pa = np.asarray(a, dtype=float).reshape(2)
+        self._check(pa, "start-blocked", a, None)
+        targets = np.asarray(targets, dtype=float).reshape(-1, 2)
+        self._sight(np.vstack([pa, targets[self._classify(targets) == ""]]))
+        dist, pred = self._search(pa)
+        best, via = self._finish(pa, targets, dist)
+        out: list[tuple[np.ndarray, float] | None] = []
+        for i, tgt in enumerate(targets):
+            if not np.isfinite(best[i]):
+                out.append(None)
+            elif np.array_equal(tgt, pa):
+                out.append((np.vstack([pa, tgt]), 0.0))
+            else:
+                out.append(self._polyline(pa, tgt, int(via[i]), pred))
+        return out
+
+
+def _simplify(pts: np.ndarray) -> np.ndarray:
+    """Drop repeated points and interior points where the polyline goes straight on."""
+    keep = [0]
+    for i in range(1, len(pts)):
+        if np.array_equal(pts[i], pts[keep[-1]]):
+            continue
+        keep.append(i)
+    pts = pts[keep]
+    if len(pts) <= 2:
+        return pts if len(pts) == 2 else np.vstack([pts, pts])
+    out = [pts[0]]
+    for i in range(1, len(pts) - 1):
+        u = _unit(pts[i] - out[-1])
+        v = _unit(pts[i + 1] - pts[i])
+        if abs(_cross(u, v)) <= _NOISE and float(u @ v) > 0:
+            continue
+        out.append(pts[i])
+    out.append(pts[-1])
+    return np.asarray(out)
+
+
+def build_roadmap(free: FreeSpace) -> Roadmap:
+    """The tangent visibility graph of the free space (uses free.box, blocked, region, eps)."""
+    t0 = time.perf_counter()
+    timing: dict[str, float] = {}
+    region = free.region
+    corners = reflex_corners(region)
+    shrunk = free.blocked.buffer(-free.eps, join_style="mitre") if not free.blocked.is_empty \
+        else free.blocked
+    shapely.prepare(shrunk)
+    timing["corners"] = time.perf_counter() - t0
+
+    t1 = time.perf_counter()
+    tri, ids = triangulate(region, np.concatenate([corners.xy, corners.pinch]))
+    corner_vertex, pinch_vertex = ids[: len(corners.xy)], ids[len(corners.xy):]
+    pinch_vertex = pinch_vertex[pinch_vertex >= 0]
+    is_pinch = np.zeros(len(tri.xy), dtype=bool)
+    is_pinch[pinch_vertex] = True
+    timing["triangulate"] = time.perf_counter() - t1
+    xmin, ymin, xmax, ymax = free.box.bounds
+    diameter = float(np.hypot(xmax - xmin, ymax - ymin)) or 1.0
+    tol = max(free.eps / diameter, 1e-11)
+
+    # corners the triangulation does not have cannot be reached by the walk: leave them out;
+    # a pinch point is looked from in every direction, not as a corner
+    placed = (corner_vertex >= 0) & ~is_pinch[np.maximum(corner_vertex, 0)]
+    c_vertex = corner_vertex[placed]
+    c_xy, c_prev, c_next = corners.xy[placed], corners.prev[placed], corners.next[placed]
+    order = np.argsort(c_vertex, kind="stable")
+    c_vertex, c_xy, c_prev, c_next = c_vertex[order], c_xy[order], c_prev[order], c_next[order]
+    corner_ptr = np.zeros(len(tri.xy) + 1, dtype=np.int64)
+    np.cumsum(np.bincount(c_vertex, minlength=len(tri.xy)), out=corner_ptr[1:])
+    node_vertex = np.unique(np.concatenate([c_vertex, pinch_vertex]))
+    vertex_node = np.full(len(tri.xy), -1, dtype=np.int64)
+    vertex_node[node_vertex] = np.arange(len(node_vertex))
+    nodes = tri.xy[node_vertex]
+
+    # each corner looks only along its tangent lines: two cones between the extensions of its
+    # two edges, forwards and backwards
+    t1 = time.perf_counter()
+    lo = _unit(c_next - c_xy)
+    hi = _unit(c_xy - c_prev)
+    cones_lo = np.stack([lo, -lo], axis=1)
+    cones_hi = np.stack([hi, -hi], axis=1)
+    windows, seen_src, seen_v = node_windows(tri, c_vertex, cones_lo, cones_hi, tol)
+    w_src, w_v = walk(tri, c_xy, windows, tol)
+    src = np.concatenate([seen_src, w_src])
+    vert = np.concatenate([seen_v, w_v])
+    p_xy = tri.xy[pinch_vertex]
+    fans = [tri.fan_tri[tri.fan_ptr[v]:tri.fan_ptr[v + 1]] for v in pinch_vertex]
+    p_windows, p_src, p_v = point_windows(tri, p_xy, fans, tol)
+    pw_src, pw_v = walk(tri, p_xy, p_windows, tol)
+    p_src, p_v = np.concatenate([p_src, pw_src]), np.concatenate([p_v, pw_v])
+    timing["walk"] = time.perf_counter() - t1
+    found = len(src) + len(p_src)
+
+    roadmap = Roadmap(
+        free=free, nodes=nodes, graph=csr_matrix((len(nodes), len(nodes))), stats={},
+        _tri=tri, _shrunk=shrunk, _tol=tol, _vertex_node=vertex_node, _corner_ptr=corner_ptr,
+        _corner_prev=c_prev, _corner_next=c_next, _pinch=is_pinch,
+    )
+    t1 = time.perf_counter()
+    src, vert = roadmap._tangent_at_node(c_xy, src, vert)
+    p_src, p_v = roadmap._tangent_at_node(p_xy, p_src, p_v)
+    u = np.concatenate([vertex_node[c_vertex[src]], vertex_node[pinch_vertex[p_src]]])
+    v = np.concatenate([vertex_node[vert], vertex_node[p_v]])
+    differ = u != v
+    pair = np.unique(np.stack([np.minimum(u, v), np.maximum(u, v)], axis=1)[differ], axis=0)
+    timing["bitangent"] = time.perf_counter() - t1
+    t1 = time.perf_counter()
+    ok = roadmap.visible(nodes[pair[:, 0]], nodes[pair[:, 1]]) if len(pair) else np.zeros(0, bool)
+    timing["exact-visibility"] = time.perf_counter() - t1
+    edges = pair[ok]
+    w = np.hypot(*(nodes[edges[:, 0]] - nodes[edges[:, 1]]).T)
+    n = len(nodes)
+    roadmap.graph = csr_matrix(
+        (np.concatenate([w, w]), (np.concatenate([edges[:, 0], edges[:, 1]]),
+                                  np.concatenate([edges[:, 1], edges[:, 0]]))),
+        shape=(n, n),
+    )
+    timing["total"] = time.perf_counter() - t0
+    roadmap.stats = {
+        "corners": int(len(corners.xy)),
+        "corners-unplaced": int((corner_vertex < 0).sum()),
+        "pinch-points": int(len(pinch_vertex)),
+        "nodes": int(n),
+        "triangles": int(len(tri.tri)),
+        "walk-pairs": int(found),
+        "candidates": int(len(pair)),
+        "edges": int(len(edges)),
+        "seconds": timing,
+    }
+    return roadmap

@@ -1,0 +1,439 @@
+"""Target order: the cheapest visiting order over a cost matrix, start and finish fixed.
+
+A nearest-neighbour tour is improved by 2-opt (reverse a stretch) and Or-opt (move a stretch of
+one to three targets, either way round) until neither gains, then by an iterated local search:
+a seeded segment swap ("double bridge" for an open path) followed by the same local search, kept
+when it is cheaper. The work is a fixed number of kicks, so the same matrix gives the same order
+on every machine; a wall-clock budget only caps pathological sizes. Targets pinned `first` or
+`last` and `after:` precedence constraints are kept by every move.
+
+Costs may be asymmetric. Unreachable targets are not ordered here: the caller leaves them out.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .model import FINISH, START, Target
+
+__all__ = [
+    "OrderProblem",
+    "Precedence",
+    "order_problems",
+    "precedence_of",
+    "shortest_order",
+    "order_cost",
+]
+
+_FIRST, _NORMAL, _LAST = 0, 1, 2
+_SEED = 20240611  # fixed: the same matrix always gets the same order
+
+
+@dataclass(frozen=True)
+class OrderProblem:
+    """A contradictory or violated ordering constraint on target `index` (position in the scene)."""
+
+    index: int
+    field: str  # "after" | "first" | "last"
+    message: str
+    hint: str
+
+
+@dataclass(frozen=True)
+class Precedence:
+    """Ordering constraints over target indices 0..n-1.
+
+    `level[k]` is 0 for a target pinned first, 2 for one pinned last, 1 otherwise: levels never
+    decrease along the tour. `before` holds pairs (a, b): target a is visited before target b.
+    """
+
+    level: tuple[int, ...]
+    before: tuple[tuple[int, int], ...] = ()
+
+    @staticmethod
+    def none(n: int) -> Precedence:
+        return Precedence(level=(_NORMAL,) * n)
+
+    def restricted(self, keep: Sequence[int]) -> Precedence:
+        """The constraints among the targets `keep` (renumbered 0..len(keep)-1 in that order)."""
+        index = {old: new for new, old in enumerate(keep)}
+        return Precedence(
+            level=tuple(self.level[k] for k in keep),
+            before=tuple((index[a], index[b]) for a, b in self.before if a in index and b in index),
+        )
+
+    def satisfied_by(self, order: Sequence[int]) -> bool:
+        pos = {t: i for i, t in enumerate(order)}
+        levels = [self.level[t] for t in order]
+        if any(x > y for x, y in zip(levels, levels[1:], strict=False)):
+            return False
+        return all(pos[a] < pos[b] for a, b in self.before if a in pos and b in pos)
+
+
+def precedence_of(targets: Sequence[Target]) -> Precedence:
+    """The scene's pins and `after:` constraints as a Precedence (unknown names are ignored:
+    `order_problems` reports them)."""
+    index = {t.id: k for k, t in enumerate(targets)}
+    level = tuple(_FIRST if t.first else _LAST if t.last else _NORMAL for t in targets)
+    before = tuple(
+        (index[t.after], k)
+        for k, t in enumerate(targets)
+        if t.after is not None and t.after in index and index[t.after] != k
+    )
+    return Precedence(level=level, before=before)
+
+
+def order_problems(targets: Sequence[Target], sequence: str) -> list[OrderProblem]:
+    """Every contradictory (`shortest`) or also violated (`given`) ordering constraint."""
+    problems: list[OrderProblem] = []
+    index = {t.id: k for k, t in enumerate(targets)}
+    n = len(targets)
+    for k, t in enumerate(targets):
+        if t.first and t.last and n > 1:
+            problems.append(OrderProblem(k, "last", f"target {t.id} is pinned both first and last",
+                                         "keep one of first: true and last: true"))
+        if t.after is None or t.after == START:
+            continue
+        if t.after == FINISH:
+            problems.append(OrderProblem(k, "after", "after: finish can never be met",
+                                         "name a target (or start) that must come before it"))
+        elif t.after not in index:
+            problems.append(OrderProblem(k, "after", f"after names no target {t.after!r}",
+                                         "use the id of a target of this scene"))
+        elif t.after == t.id:
+            problems.append(OrderProblem(k, "after", f"target {t.id} is after itself",
+                                         "name another target, or remove after"))
+    if problems:
+        return problems
+
+    prec = precedence_of(targets)
+    names = ("first", "unpinned", "last")
+    for a, b in prec.before:
+        if prec.level[a] > prec.level[b]:
+            problems.append(OrderProblem(
+                b, "after",
+                f"target {targets[b].id} ({names[prec.level[b]]}) must come after "
+                f"{targets[a].id} ({names[prec.level[a]]}): the pins contradict this",
+                "remove the pin or the after constraint",
+            ))
+    cycle = _find_cycle(n, prec.before)
+    if cycle:
+        ids = " -> ".join(targets[k].id for k in [*cycle, cycle[0]])
+        problems.append(OrderProblem(cycle[0], "after",
+                                     f"the after constraints form a cycle: {ids}",
+                                     "remove one after constraint of the cycle"))
+    if problems or sequence != "given":
+        return problems
+
+    for a, b in prec.before:
+        if a > b:
+            problems.append(OrderProblem(
+                b, "after",
+                f"target {targets[b].id} comes before {targets[a].id} in the given order but must "
+                "be visited after it",
+                f"list {targets[b].id} after {targets[a].id}, or use sequence: shortest",
+            ))
+    for k in range(1, n):
+        if prec.level[k] < prec.level[k - 1]:
+            pinned = k if prec.level[k] == _FIRST else k - 1
+            field = "first" if prec.level[k] == _FIRST else "last"
+            problems.append(OrderProblem(
+                pinned, field,
+                f"target {targets[pinned].id} is pinned {field} but is not {field} in the given "
+                "order",
+                f"move it to the {'top' if field == 'first' else 'end'} of the list, or use "
+                "sequence: shortest",
+            ))
+    return problems
+
+
+def _find_cycle(n: int, edges: Sequence[tuple[int, int]]) -> list[int]:
+    """One directed cycle among `edges` over 0..n-1 (in order), or [] when there is none."""
+    succ: list[list[int]] = [[] for _ in range(n)]
+    for a, b in edges:
+        succ[a].append(b)
+    state = [0] * n  # 0 new, 1 on the stack, 2 done
+    for root in range(n):
+        if state[root]:
+            continue
+        stack = [(root, 0)]
+        path = [root]
+        state[root] = 1
+        while stack:
+            node, i = stack[-1]
+            if i < len(succ[node]):
+                stack[-1] = (node, i + 1)
+                nxt = succ[node][i]
+                if state[nxt] == 1:
+                    return path[path.index(nxt):]
+                if state[nxt] == 0:
+                    state[nxt] = 1
+                    stack.append((nxt, 0))
+                    path.append(nxt)
+            else:
+                state[node] = 2
+                stack.pop()
+                path.pop()
+    return []
+
+
+def order_cost(cost: np.ndarray, order: Sequence[int], has_finish: bool) -> float:
+    """Total cost of visiting targets `order` (0-based) from node 0, ending at node n+1 if any.
+
+    `cost` is indexed by node: 0 = start, 1..n = targets, n+1 = finish (when `has_finish`).
+    """
+    nodes = [0, *(t + 1 for t in order)]
+    if has_finish:
+        nodes.append(cost.shape[0] - 1)
+    c = np.asarray(cost, dtype=float)
+    return float(sum(c[a, b] for a, b in zip(nodes, nodes[1:], strict=False)))
+
+
+def shortest_order(
+    cost: np.ndarray,
+    *,
+    has_finish: bool,
+    precedence: Precedence | None = None,
+    kicks: int | None = None,
+    time_budget_s: float = 30.0,
+) -> list[int]:
+    """The visiting order (target indices 0..n-1) of a cheap tour from start to finish.
+
+    `cost` is a square matrix indexed by node: 0 = start, 1..n = targets, n+1 = finish when
+    `has_finish` (else the tour may end at any target). Entries must be >= 0; inf marks a
+    missing connection and is avoided where the constraints allow. `kicks` is the number of
+    iterated-local-search rounds (default grows with n); `time_budget_s` caps the whole search.
+    """
+    c = np.asarray(cost, dtype=float)
+    n = c.shape[0] - 1 - (1 if has_finish else 0)
+    if c.ndim != 2 or c.shape[0] != c.shape[1] or n < 0:
+        raise ValueError("cost must be a square matrix over start, targets (and finish)")
+    prec = precedence if precedence is not None else Precedence.none(n)
+    if len(prec.level) != n:
+        raise ValueError("precedence must cover every target")
+    if n <= 1:
+        return list(range(n))
+
+    full = np.zeros((n + 2, n + 2))  # node n+1 is the finish or a free end (cost 0 to reach)
+    full[: n + 1, : n + 1] = c[: n + 1, : n + 1]
+    if has_finish:
+        full[: n + 1, n + 1] = c[: n + 1, n + 1]
+    finite = full[np.isfinite(full)]
+    big = (float(finite.max()) if finite.size else 1.0) * (n + 2) * 4.0 + 1.0
+    full = np.where(np.isfinite(full), full, big)
+    np.fill_diagonal(full, 0.0)
+
+    search = _TourSearch(full, prec, deadline=time.monotonic() + time_budget_s)
+    tour = search.nearest_neighbour()
+    tour = search.improve(tour)
+    rounds = kicks if kicks is not None else min(400, 50 + 4 * n)
+    tour = search.iterate(tour, rounds)
+    return [int(v) - 1 for v in tour[1:-1]]
+
+
+class _TourSearch:
+    """Local search over paths of node indices 0 .. N-1 with fixed ends 0 and N-1."""
+
+    def __init__(self, cost: np.ndarray, prec: Precedence, deadline: float) -> None:
+        self.c = cost
+        self.size = cost.shape[0]
+        self.level = np.array([-1, *prec.level, 3])
+        self.pair_a = np.array([a + 1 for a, _ in prec.before], dtype=int)
+        self.pair_b = np.array([b + 1 for _, b in prec.before], dtype=int)
+        self.constrained = bool(len(self.pair_a)) or bool(np.any(self.level[1:-1] != _NORMAL))
+        self.deadline = deadline
+        scale = float(np.mean(cost)) if cost.size else 1.0
+        self.eps = 1e-9 * max(scale, 1e-12)
+
+    # -- feasibility and cost --------------------------------------------------------------
+    def feasible(self, tour: np.ndarray) -> bool:
+        if not self.constrained:
+            return True
+        if np.any(np.diff(self.level[tour]) < 0):
+            return False
+        if len(self.pair_a):
+            pos = np.empty(self.size, dtype=int)
+            pos[tour] = np.arange(self.size)
+            return bool(np.all(pos[self.pair_a] < pos[self.pair_b]))
+        return True
+
+    def cost_of(self, tour: np.ndarray) -> float:
+        return float(self.c[tour[:-1], tour[1:]].sum())
+
+    # -- construction ------------------------------------------------------------------------
+    def nearest_neighbour(self) -> np.ndarray:
+        """From the start, always the cheapest next target whose constraints allow it now."""
+        n = self.size - 2
+        waiting = np.zeros(self.size, dtype=int)  # unvisited predecessors per node
+        succ: list[list[int]] = [[] for _ in range(self.size)]
+        for a, b in zip(self.pair_a, self.pair_b, strict=True):
+            waiting[b] += 1
+            succ[a].append(b)
+        visited = np.zeros(self.size, dtype=bool)
+        visited[0] = visited[-1] = True
+        tour = [0]
+        current = 0
+        for _ in range(n):
+            open_ = ~visited & (waiting == 0)
+            lowest = self.level[open_].min()
+            allowed = np.flatnonzero(open_ & (self.level == lowest))
+            nxt = int(allowed[np.argmin(self.c[current, allowed])])
+            tour.append(nxt)
+            visited[nxt] = True
+            for b in succ[nxt]:
+                waiting[b] -= 1
+            current = nxt
+        tour.append(self.size - 1)
+        return np.array(tour, dtype=int)
+
+    # -- local search ------------------------------------------------------------------------
+    def _moves(self, tour: np.ndarray, dirty: np.ndarray | None):
+        """Improving 2-opt and Or-opt moves as arrays (delta, kind, a, b, reversed).
+
+        kind 0 is 2-opt (a, b: the removed edges, positions a+1..b reversed); kind L = 1..3 is
+        Or-opt (positions a..a+L-1 moved into edge b). With `dirty` (edge indices), only moves
+        that remove one of those edges are looked at.
+        """
+        c, p, size = self.c, tour, self.size
+        m = size - 1  # edges 0..m-1; edge k joins positions k and k+1
+        f = c[p[:-1], p[1:]]
+        g = np.concatenate(([0.0], np.cumsum(c[p[1:], p[:-1]] - f)))  # reversed minus forward
+        edges = np.arange(m)
+        rows = edges if dirty is None else dirty
+        found = []
+
+        lo = np.minimum(rows[:, None], edges[None, :])
+        hi = np.maximum(rows[:, None], edges[None, :])
+        d = c[p[lo], p[hi]] + c[p[lo + 1], p[hi + 1]] - f[lo] - f[hi] + g[hi] - g[lo + 1]
+        d[hi - lo < 2] = np.inf
+        found.append((d, 0, lo, hi, 0))
+
+        for length in (1, 2, 3):
+            starts = np.arange(1, size - length)
+            if starts.size == 0:
+                continue
+            if dirty is None:
+                blocks = [(starts, edges)]
+            else:
+                near = np.union1d(dirty + 1, dirty - length + 1)
+                near = near[(near >= 1) & (near <= size - 1 - length)]
+                blocks = [(near, edges), (starts, dirty)]
+            for s, q in blocks:
+                if s.size == 0 or q.size == 0:
+                    continue
+                e = s + length - 1
+                removal = (f[s - 1] + f[e] - c[p[s - 1], p[e + 1]])[:, None]
+                bad = (q[None, :] >= s[:, None] - 1) & (q[None, :] <= e[:, None])
+                ss = np.broadcast_to(s[:, None], bad.shape)
+                qq = np.broadcast_to(q[None, :], bad.shape)
+                fwd = c[p[q][None, :], p[s][:, None]] + c[p[e][:, None], p[q + 1][None, :]]
+                fwd = fwd - f[q][None, :] - removal
+                fwd[bad] = np.inf
+                found.append((fwd, length, ss, qq, 0))
+                if length > 1:
+                    rev = c[p[q][None, :], p[e][:, None]] + c[p[s][:, None], p[q + 1][None, :]]
+                    rev = rev - f[q][None, :] - removal + (g[e] - g[s])[:, None]
+                    rev[bad] = np.inf
+                    found.append((rev, length, ss, qq, 1))
+
+        if not self.constrained:
+            best = None
+            for delta, kind, a, b, rev in found:
+                k = np.unravel_index(np.argmin(delta), delta.shape)
+                if delta[k] < -self.eps and (best is None or delta[k] < best[0][0]):
+                    best = (np.array([delta[k]]), np.array([kind]), np.array([a[k]]),
+                            np.array([b[k]]), np.array([rev]))
+            return best
+        parts = []
+        for delta, kind, a, b, rev in found:
+            hit = delta < -self.eps
+            if np.any(hit):
+                count = int(hit.sum())
+                parts.append((delta[hit], np.full(count, kind), a[hit], b[hit],
+                              np.full(count, rev)))
+        if not parts:
+            return None
+        return tuple(np.concatenate(col) for col in zip(*parts, strict=True))
+
+    @staticmethod
+    def _apply(tour: np.ndarray, kind: int, a: int, b: int, rev: int):
+        """The tour after a move, and the nodes at the ends of the edges it created."""
+        if kind == 0:  # 2-opt
+            new = tour.copy()
+            new[a + 1: b + 1] = tour[a + 1: b + 1][::-1]
+            return new, tour[[a, a + 1, b, b + 1]]
+        s, e, q = a, a + kind - 1, b
+        seg = tour[s: e + 1][::-1] if rev else tour[s: e + 1]
+        ends = tour[[s - 1, s, e, e + 1, q, q + 1]]
+        if q < s - 1:
+            return np.concatenate((tour[: q + 1], seg, tour[q + 1: s], tour[e + 1:])), ends
+        return np.concatenate((tour[:s], tour[e + 1: q + 1], seg, tour[q + 1:])), ends
+
+    def improve(self, tour: np.ndarray, dirty_nodes: np.ndarray | None = None) -> np.ndarray:
+        """2-opt and Or-opt, best move first, until no feasible move gains.
+
+        With `dirty_nodes`, only moves touching edges at those nodes (and the nodes of edges
+        the search itself creates) are looked at: the usual "don't look" shortcut after a kick.
+        """
+        marked = None
+        if dirty_nodes is not None:
+            marked = np.zeros(self.size, dtype=bool)
+            marked[dirty_nodes] = True
+        while time.monotonic() < self.deadline:
+            dirty = None
+            if marked is not None:
+                at = np.flatnonzero(marked[tour])
+                dirty = np.unique(np.concatenate((at - 1, at)))
+                dirty = dirty[(dirty >= 0) & (dirty < self.size - 1)]
+            moves = self._moves(tour, dirty)
+            if moves is None:
+                return tour
+            delta, kind, a, b, rev = moves
+            order = np.lexsort((np.arange(delta.size), delta))
+            for k in order:
+                new, ends = self._apply(tour, int(kind[k]), int(a[k]), int(b[k]), int(rev[k]))
+                if self.feasible(new):
+                    tour = new
+                    if marked is not None:
+                        marked[ends] = True
+                    break
+            else:
+                return tour
+        return tour
+
+    def iterate(self, tour: np.ndarray, rounds: int) -> np.ndarray:
+        """Iterated local search: seeded segment swaps, each followed by a local `improve`, kept
+        when cheaper; a full `improve` of the best tour at the end."""
+        size = self.size
+        if size < 5 or rounds <= 0:
+            return tour
+        rng = np.random.default_rng(_SEED)
+        best, best_cost = tour, self.cost_of(tour)
+        longest = max(1, min(50, (size - 2) // 3))
+        for _ in range(rounds):
+            if time.monotonic() >= self.deadline:
+                break
+            for _try in range(20):
+                if rng.random() < 0.5:  # anywhere: large rearrangements
+                    a, b, c = (int(v) for v in np.sort(rng.choice(size - 1, 3, replace=False) + 1))
+                else:  # two short neighbouring stretches
+                    a = int(rng.integers(1, size - 2))
+                    b = a + int(rng.integers(1, longest + 1))
+                    c = b + int(rng.integers(1, longest + 1))
+                    if c > size - 1:
+                        continue
+                kicked = np.concatenate((best[:a], best[b:c], best[a:b], best[c:]))
+                if self.feasible(kicked):
+                    break
+            else:
+                continue
+            ends = best[[a - 1, a, b - 1, b, c - 1, c]]
+            candidate = self.improve(kicked, ends)
+            cand_cost = self.cost_of(candidate)
+            if cand_cost < best_cost - self.eps:
+                best, best_cost = candidate, cand_cost
+        return self.improve(best)
