@@ -14,7 +14,7 @@ from typing import Any
 from planner.model import Route
 
 from .base import AdapterError, config_file_name, output_resolution
-from .numbers import decimals_for, fixed
+from .numbers import check_on_grid, decimals_for, fixed
 from .section import Section
 from .waypoints import route_waypoints
 
@@ -79,10 +79,13 @@ class CsvWaypoints:
         if route.units not in COLUMN_UNIT:
             raise AdapterError(f"csv: unknown route units {route.units!r} (expected mm or inch)")
         unit = COLUMN_UNIT[route.units]
-        decimals = decimals_for(output_resolution(route, job))
+        resolution = output_resolution(route, job)
+        decimals = decimals_for(resolution)
+        waypoints = route_waypoints(route)
+        check_on_grid(((w.x, w.y) for w in waypoints), decimals, resolution, "csv")
         d, end = cfg.delimiter, cfg.line_ending
         rows = [d.join(["seq", "leg", "kind", "target", f"x_{unit}", f"y_{unit}"])]
-        for w in route_waypoints(route):
+        for w in waypoints:
             target = _plain(w.target, "target id", d)
             rows.append(d.join(
                 [str(w.seq), str(w.leg), w.kind, target, fixed(w.x, decimals), fixed(w.y, decimals)]

@@ -27,7 +27,7 @@ from planner.model import FINISH, START, Route
 from .base import AdapterError, config_file_name, output_resolution
 from .gcode_settings import MAX_LINE_NUMBER, GcodeSettings, TextBlock, read_gcode_settings
 from .gcode_words import comment, non_printable, refusal, split_comments
-from .numbers import decimals_for, fixed, trimmed
+from .numbers import check_on_grid, decimals_for, fixed, trimmed
 from .waypoints import check_continuous
 
 __all__ = ["GcodeMoves"]
@@ -111,6 +111,7 @@ class GcodeMoves:
         )
         check_continuous(route)
         decimals = cfg.decimals if cfg.decimals is not None else decimals_for(resolution)
+        check_on_grid((p for leg in route.legs for p in leg.points), decimals, resolution, "gcode")
         return _Writer(route, cfg, decimals).program()
 
 

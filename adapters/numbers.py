@@ -1,48 +1,44 @@
-"""Numbers as adapters write them: fixed decimals, `.` as decimal mark, nothing lost."""
+"""Numbers as adapters write them: the route file's decimals, `.` as decimal mark, nothing lost."""
 
 from __future__ import annotations
 
-import math
+from collections.abc import Iterable
 
-__all__ = ["decimals_for", "written_error", "fixed", "trimmed"]
+import numpy as np
 
-# Relative slack when comparing decimal steps with the resolution (0.001 is not exact in binary).
-_SLACK = 1e-9
-# When no finite number of decimals writes every multiple of the resolution exactly (0.001 mm in
-# inch), this many decimals past the resolution's first keep the written value within 0.0005 of
-# a resolution step of the value the route was checked with.
-_EXTRA = 3
+from planner.routefile import decimals_for as _route_decimals
 
+from .base import AdapterError
 
-def _first_decimal(resolution: float) -> int:
-    return max(0, math.ceil(-math.log10(resolution) - _SLACK))
+__all__ = ["decimals_for", "check_on_grid", "fixed", "trimmed"]
 
-
-def _is_multiple_of_step(resolution: float, decimals: int) -> bool:
-    scaled = resolution * 10.0**decimals
-    return abs(scaled - round(scaled)) <= 1e-6 * max(1.0, scaled)
+# A written coordinate may differ from the checked one by this fraction of the resolution (float
+# noise only): the adapters' files hold the verified path, as the route file does.
+ON_GRID = 1e-3
 
 
 def decimals_for(resolution: float) -> int:
-    """Decimals to write coordinates that were rounded to `resolution`, losing nothing.
+    """Decimals of coordinates at this output resolution: the route file's (0.001 -> 3).
 
-    The fewest decimals that write every multiple of the resolution exactly (0.001 -> 3,
-    0.0005 -> 4, 0.25 -> 2, 1 -> 0); for a resolution that is no decimal step (0.001 mm expressed
-    in inch, 3.94e-5), 3 decimals more than its first one (-> 8), so the written value stays
-    within 0.0005 of a resolution step of the value the route was checked with.
+    A tidy resolution (0.001, 0.0005, 0.25) gives the decimals of its step; an untidy one (0.001
+    mm expressed in inch) the next finer power of ten, the grid the planner rounds to.
     """
-    if not (isinstance(resolution, int | float) and math.isfinite(resolution) and resolution > 0):
-        raise ValueError(f"resolution must be a positive number, not {resolution!r}")
-    first = _first_decimal(resolution)
-    for decimals in range(first, first + _EXTRA + 1):
-        if _is_multiple_of_step(resolution, decimals):
-            return decimals
-    return first + _EXTRA
+    return _route_decimals(resolution)
 
 
-def written_error(decimals: int) -> float:
-    """How far a value can move when written with `decimals` decimals (half the last digit)."""
-    return 0.5 * 10.0 ** (-decimals)
+def check_on_grid(points: Iterable, decimals: int, resolution: float, what: str) -> None:
+    """Refuse points that `decimals` decimals would move: the file must hold the checked path."""
+    arr = np.asarray(list(points), dtype=float).reshape(-1, 2)
+    if not arr.size:
+        return
+    written = np.round(arr, decimals)
+    off = np.abs(written - arr).max()
+    if off > ON_GRID * resolution:
+        raise AdapterError(
+            f"{what}: a route point is not on the output grid (resolution {resolution:g}); "
+            f"written with {decimals} decimals it would move by {off:.3g}, off the checked path "
+            "(replan the scene: the planner rounds every point to the grid)"
+        )
 
 
 def fixed(value: float, decimals: int) -> str:

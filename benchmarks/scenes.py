@@ -81,8 +81,11 @@ def _rounded(rng: np.random.Generator, c: np.ndarray, half: np.ndarray, m: int) 
         line = [(-1, 1), (-1, -1), (1, -1), (1, 1)]
     pts = np.array(line, dtype=np.float64) * (half - w)
     quad = max(2, m // (4 * len(line)))
-    shape = shapely.LineString(pts).buffer(w, quad_segs=quad, cap_style="round",
-                                           join_style="round")
+    for _ in range(2):  # one correction of quad_segs brings the vertex count close to m
+        shape = shapely.LineString(pts).buffer(w, quad_segs=quad, cap_style="round",
+                                               join_style="round")
+        got = len(shape.exterior.coords) - 1
+        quad = max(2, round(quad * m / got))
     return c + np.asarray(shape.exterior.coords)[:-1]
 
 
@@ -116,7 +119,8 @@ def _layout(rng: np.random.Generator, n: int, kind: str, table: tuple[float, flo
             px = aisle + (k % pcols) * (pw + aisle)
             py = aisle + (k // pcols) * (ph + aisle)
             j = np.arange(per)
-            centres.append(np.column_stack([px + (j % cols + 0.5) * cw, py + (j // cols + 0.5) * ch]))
+            centres.append(np.column_stack([px + (j % cols + 0.5) * cw,
+                                            py + (j // cols + 0.5) * ch]))
             halves.append(np.array([cw, ch]) * 0.5 * rng.uniform(0.55, 0.8, (per, 2)))
         centre = np.concatenate(centres)[:n]
         half = np.concatenate(halves)[:n]

@@ -118,6 +118,7 @@ def _drive(child, drop: Path, routes: Path, log: Path, options, settings: Settin
           f"{options.settle_s:g} s: a scene is planned once it has not changed for that long)")
     budget = options.settle_s + options.parse_wait_s + settings.limits.time_budget_s + 30
     sheets: list[tuple[str, Path]] = []
+    problems = 0  # bundled scenes that did not plan: a bug worth an exit status
     for scene in demo_scenes():
         time.sleep(_OPERATOR_PAUSE_S)
         data = scene.read_bytes()
@@ -140,25 +141,32 @@ def _drive(child, drop: Path, routes: Path, log: Path, options, settings: Settin
             return 1
         waited = time.monotonic() - dropped
         _report(entry, routes, waited)
+        problems += entry["state"] not in ("planned", "incomplete")
         sheets += [(entry.get("state"), routes / n) for n in entry.get("files", [])
                    if n.endswith(".html")]
     if keep_running:
+        _closing(sheets)
         print(f"\nThe watcher keeps watching {drop}/ (pid {child.pid}): save more scenes there.")
         print(f"Stop it with Ctrl-C here, or from another terminal: kill -TERM {child.pid}")
         while child.poll() is None:
             time.sleep(0.2)
         code = child.returncode
-    else:
-        code = _stop(child)
-        print(f"\nwatcher stopped cleanly (exit {code})" if code == 0 else
-              f"\nthe watcher stopped with exit {code}; its log says:\n{_log_tail(log)}")
+        print(f"watcher stopped (exit {code})")
+        return 0 if code == 0 and not problems else 1
+    code = _stop(child)
+    print(f"\nwatcher stopped cleanly (exit {code})" if code == 0 else
+          f"\nthe watcher stopped with exit {code}; its log says:\n{_log_tail(log)}")
+    _closing(sheets)
+    return 0 if code == 0 and not problems else 1
+
+
+def _closing(sheets: list[tuple[str, Path]]) -> None:
     if sheets:  # the one with an unreachable target shows the most
         first = next((s for state, s in sheets if state == "incomplete"), sheets[0][1])
         print(f"\nOpen first: {first} in a web browser: the picture of the table and route, "
               "the legs, and why a target cannot be reached.")
     print("Before running any route on a machine:")
     print(caution_text())
-    return 0 if code == 0 else 1
 
 
 def _report(entry: dict, routes: Path, waited: float) -> None:

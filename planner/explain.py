@@ -4,15 +4,17 @@ Two causes, two analyses:
 
 - The point lies inside a grown obstacle. Each obstacle's true clearance to the head placed at
   the point is measured on the original shapes (shapely distances, circles exact); the ones below
-  the margin are named, with how far the point must move to reach free space that is connected to
-  the other end of the leg, and the margin below which the point itself would be clear.
-- The point is cut off: both ends are free but in different pieces of free space. The obstacles
-  whose grown shapes bound either piece form the wall; each pair of them (or an obstacle and a
-  travel limit) whose grown shapes meet is a contact. A contact closes the way when carving out
-  just the place where the two grown shapes overlap joins the two pieces. For each such pair the
-  true gap between the original shapes is given against what the head needs there (its width
-  across the gap plus twice the margin), with the margin that would open it (from the two
-  obstacles grown by the footprint alone) and how much narrower the head would have to be.
+  the margin are named, with how far the point must move to reach free space from which the way
+  is open, and the margin below which the point itself would be clear.
+- The point is cut off: both ends are free but in different pieces of free space. Around the
+  smaller piece, each pair of obstacles (or an obstacle and a travel limit) whose grown shapes
+  meet is a contact; a contact closes the way when carving out just the place where the two
+  grown shapes overlap joins the two pieces. For each such pair the true gap between the
+  original shapes is given against what the head needs there (its width across the gap plus
+  twice the margin), with the margin that would open it (from the two obstacles grown by the
+  footprint alone) and how much narrower the head would have to be. When no single contact
+  opens the way (nested walls), a search from piece to piece finds the contacts that must all
+  open.
 
 Margins that are said to make a point reachable are checked by building the free space again
 with that margin; claims that were not checked are not made.
@@ -151,7 +153,7 @@ class Explainer:
         head = f"no collision-free path from {from_id}"
         what = "finish" if to_id == FINISH else "target"
         if exc.kind == "outside-travel":
-            text, extra = self._outside(a if exc_point_is_a(exc, self.scene) else b, what)
+            text, extra = self._outside(a if _outside_end_is_a(exc, self.scene) else b, what)
         elif exc.kind == "start-blocked":
             where = "the start" if from_id == START else from_id
             text, extra = self._inside(a, "start-inside-obstacle", where, free, fp,
@@ -207,13 +209,16 @@ class Explainer:
 
         # how far to the nearest free point connected to the other end of the leg
         fixes = []
-        move, nearest = self._nearest_reachable(p, other, free)
+        # (for the far end of a leg: connected to its start; for the start: anywhere)
+        move, nearest, joined = self._nearest_free(p, other, free,
+                                                   connected=kind == "inside-obstacle")
         if move is not None:
             move_r = _ceil(move, step)
             extra["move"] = move_r
             extra["nearest_free"] = [nearest[0], nearest[1]]
             fixes.append(f"move {where} at least {_num(move_r, u, step)}, to about "
-                         f"({_coord(nearest[0])}, {_coord(nearest[1])})")
+                         f"({_coord(nearest[0])}, {_coord(nearest[1])})"
+                         + ("" if joined else " (from there the way is still closed)"))
         else:
             fixes.append("no free point within the travel limits connects to the other end "
                          "of the leg")
@@ -240,15 +245,19 @@ class Explainer:
                                     for f in fixes[1:])
         return text + ". " + _capital(joined) + ".", extra
 
-    def _nearest_reachable(self, p: Point, other: Point, free: FreeSpace):
+    def _nearest_free(self, p: Point, other: Point, free: FreeSpace, connected: bool):
+        """Distance to, and the point of, the nearest free point: in the piece of free space
+        holding `other` when `connected` (and `other` is free), else anywhere; and whether that
+        point shares a piece with `other`."""
         comps = free.components()
         if len(comps) == 0:
-            return None, None
+            return None, None, False
         k = free.component_of(other)
-        target = comps[k] if k is not None else shapely.union_all(comps)
+        target = comps[k] if connected and k is not None else free.region
         pt = shapely.Point(p)
         near = shapely.ops.nearest_points(target, pt)[0]
-        return float(target.distance(pt)), (float(near.x), float(near.y))
+        joined = k is not None and free.component_of((near.x, near.y)) == k
+        return float(target.distance(pt)), (float(near.x), float(near.y)), joined
 
     # -- outside the travel limits --------------------------------------------------------------
     def _outside(self, p: Point, what: str):
@@ -411,45 +420,67 @@ class Explainer:
         comp_tree = self._component_tree(free)
 
         entries = []
-        for i in range(len(names)):
-            for j in range(i + 1, len(names)):
-                ni, nj = names[i], names[j]
-                if ni.startswith("travel ") and nj.startswith("travel "):
-                    continue  # a corner of the table
-                if not shapely.intersects(geoms[i], geoms[j]):
-                    continue
-                hole = shapely.buffer(shapely.intersection(geoms[i], geoms[j]), tol)
-                # what else is blocked where the hole is: other obstacles' pieces and the
-                # travel limits that are not in this pair
-                hits = ptree.query(hole, predicate="intersects")
-                keep = [h for h in hits if free.obstacle_ids[free.piece_owner[h]] not in (ni, nj)]
-                blockers = list(free.pieces[keep]) + [
-                    g for s, g in strips.items() if s not in (ni, nj)]
-                if blockers:
-                    hole = shapely.difference(hole, shapely.union_all(blockers))
-                joined = self._joined(hole, k, comps, comp_tree)
-                if len(joined) < 2:
-                    continue  # carving it out opens nothing for this piece
-                first, second = (nj, ni) if ni.startswith("travel ") else (ni, nj)
-                entries.append((self._measure(first, second, by_id, footprint, free, False),
-                                joined))
+        if not names:
+            self._cache[key] = (free, entries)
+            return entries
+        geoms = np.array(geoms, dtype=object)
+        left, right = shapely.STRtree(geoms).query(geoms, predicate="intersects")
+        for i, j in zip(left.tolist(), right.tolist(), strict=True):
+            if j <= i:
+                continue
+            ni, nj = names[i], names[j]
+            if ni.startswith("travel ") and nj.startswith("travel "):
+                continue  # a corner of the table
+            hole = shapely.buffer(shapely.intersection(geoms[i], geoms[j]), tol)
+            if len(self._joined(hole, k, comp_tree, tol)) < 2:
+                continue  # even before the rest is subtracted it reaches no other piece
+            # what else is blocked where the hole is: other obstacles' pieces and the travel
+            # limits that are not in this pair
+            hits = ptree.query(hole, predicate="intersects")
+            keep = [h for h in hits if free.obstacle_ids[free.piece_owner[h]] not in (ni, nj)]
+            blockers = list(free.pieces[keep]) + [
+                g for s, g in strips.items() if s not in (ni, nj)]
+            if blockers:
+                hole = shapely.difference(hole, shapely.union_all(blockers))
+            joined = self._joined(hole, k, comp_tree, tol)
+            if len(joined) < 2:
+                continue  # carving it out opens nothing for this piece
+            first, second = (nj, ni) if ni.startswith("travel ") else (ni, nj)
+            entries.append((self._measure(first, second, by_id, footprint, free, False),
+                            joined))
         self._cache[key] = (free, entries)
         return entries
 
     @staticmethod
-    def _joined(hole, k: int, comps, comp_tree) -> frozenset[int]:
-        """The pieces of free space that adding `hole` joins to piece `k` (k included)."""
+    def _joined(hole, k: int, comp_tree, hair: float) -> frozenset[int]:
+        """The pieces of free space that adding `hole` joins to piece `k` (k included).
+
+        Each connected part of the hole joins the pieces it overlaps in area; overlap is tested
+        on the part shrunk by a quarter of the carving hair, so pieces that the part only
+        touches at a point (not a way through) do not count.
+        """
         if hole.is_empty:
             return frozenset({k})
-        touched = [int(i) for i in comp_tree.query(hole, predicate="intersects")]
-        if k not in touched or len(touched) < 2:
-            return frozenset({k})
-        joined = shapely.union_all(np.concatenate([comps[touched], [hole]]))
-        marks = {i: comps[i].representative_point() for i in touched}
-        for part in shapely.get_parts(joined):
-            if part.intersects(marks[k]):
-                return frozenset(i for i in touched if part.intersects(marks[i]))
-        return frozenset({k})
+        parts = shapely.get_parts(hole)
+        cores = shapely.buffer(parts, -hair / 4)
+        cores = cores[~shapely.is_empty(cores)]
+        part, cand = comp_tree.query(cores)  # bounding boxes first, then the prepared pieces
+        comps = comp_tree.geometries
+        hit = shapely.intersects(comps[cand], cores[part])
+        groups = []
+        for q in np.unique(part):
+            g = set(cand[(part == q) & hit].tolist())
+            if len(g) > 1:
+                groups.append(g)
+        joined = {k}
+        grew = True
+        while grew:  # parts that share a piece chain together
+            grew = False
+            for g in groups:
+                if g & joined and not g <= joined:
+                    joined |= g
+                    grew = True
+        return frozenset(joined)
 
     def _piece_tree(self, free: FreeSpace) -> shapely.STRtree:
         key = ("pieces", id(free))
@@ -462,7 +493,9 @@ class Explainer:
         key = ("components", id(free))
         tree = self._cache.get(key)
         if tree is None or tree[0] is not free:
-            tree = self._cache[key] = (free, shapely.STRtree(free.components()))
+            comps = free.components()
+            shapely.prepare(comps)  # many small holes are tested against a few big pieces
+            tree = self._cache[key] = (free, shapely.STRtree(comps))
         return tree[1]
 
     def _measure(self, first: str, second: str, by_id: dict[str, Obstacle], footprint,
@@ -547,7 +580,7 @@ class Explainer:
         return ka is not None and ka == kb
 
 
-def exc_point_is_a(exc, scene: Scene) -> bool:
+def _outside_end_is_a(exc, scene: Scene) -> bool:
     """Which end of an outside-travel NoPath is outside the travel limits."""
     return not scene.travel.contains(tuple(exc.a))
 

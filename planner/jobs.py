@@ -40,6 +40,11 @@ class JobOutcome:
     result: PlanResult | None = None
 
 
+def _planner_yaml(settings: Settings) -> Path:
+    folder = settings.config_dir if settings.config_dir is not None else Path("config")
+    return folder / "planner.yaml"
+
+
 def route_file_name(stem: str) -> str:
     return f"{stem}.route.yaml"
 
@@ -63,7 +68,15 @@ def run_job(
             scene = load_scene(scene_path, settings)
         else:
             scene = load_scene_bytes(data, scene_path.name, settings)
-        adapters = enabled_adapters(settings.adapters) if write else []
+        adapters = (
+            enabled_adapters(
+                settings.adapters,
+                config_file=str(_planner_yaml(settings)),
+                adapter_settings=settings.adapter_settings,
+            )
+            if write
+            else []
+        )
         result = plan_scene(scene, settings, cache=cache)
     except (SceneError, ConfigError) as exc:
         return JobOutcome("invalid", EXIT_INVALID, format_error(exc))

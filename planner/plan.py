@@ -114,7 +114,9 @@ def plan_scene(
         legs=tuple(legs),
         unreachable=tuple(unreachable),
     )
-    verify_or_raise(route, scene, tolerance=verify_tolerance(settings))
+    verify_or_raise(
+        route, scene, tolerance=verify_tolerance(settings), resolution=settings.resolution
+    )
     return PlanResult(route=route, scene=scene, settings=settings, free=free, roadmap=roadmap)
 
 

@@ -201,7 +201,7 @@ def _scene(value: Any, file: str, sha256: str, settings: Settings) -> Scene:
     _check_counts(value, limits)
     skeleton, rings = _split_rings(value, limits)
     _check_numbers(skeleton, limits)
-    check_schema(skeleton, SCHEMA, delegate=("ring",))
+    check_schema(skeleton, SCHEMA, delegate=("ring",), dedupe=("obstacles", "targets"))
     check_rings(list(rings.items()))
 
     units = value.get("units", "mm")

@@ -31,6 +31,7 @@ __all__ = [
 
 _FIRST, _NORMAL, _LAST = 0, 1, 2
 _SEED = 20240611  # fixed: the same matrix always gets the same order
+_BATCH = 16  # marked nodes looked at together by the local search
 
 
 @dataclass(frozen=True)
@@ -374,35 +375,36 @@ class _TourSearch:
         return np.concatenate((tour[:s], tour[e + 1: q + 1], seg, tour[q + 1:])), ends
 
     def improve(self, tour: np.ndarray, dirty_nodes: np.ndarray | None = None) -> np.ndarray:
-        """2-opt and Or-opt, best move first, until no feasible move gains.
+        """2-opt and Or-opt until no feasible move gains ("don't look" marks on nodes).
 
-        With `dirty_nodes`, only moves touching edges at those nodes (and the nodes of edges
-        the search itself creates) are looked at: the usual "don't look" shortcut after a kick.
+        Marked nodes are looked at a batch at a time, in tour order: the best feasible move that
+        removes an edge at one of them is made and the nodes of the edges it creates are marked;
+        a batch without one is unmarked. Default: every node marked.
         """
-        marked = None
+        marked = np.ones(self.size, dtype=bool) if dirty_nodes is None else np.zeros(
+            self.size, dtype=bool)
         if dirty_nodes is not None:
-            marked = np.zeros(self.size, dtype=bool)
             marked[dirty_nodes] = True
         while time.monotonic() < self.deadline:
-            dirty = None
-            if marked is not None:
-                at = np.flatnonzero(marked[tour])
-                dirty = np.unique(np.concatenate((at - 1, at)))
-                dirty = dirty[(dirty >= 0) & (dirty < self.size - 1)]
+            at = np.flatnonzero(marked[tour])
+            if at.size == 0:
+                return tour
+            take = at[:_BATCH]
+            dirty = np.unique(np.concatenate((take - 1, take)))
+            dirty = dirty[(dirty >= 0) & (dirty < self.size - 1)]
             moves = self._moves(tour, dirty)
-            if moves is None:
-                return tour
-            delta, kind, a, b, rev = moves
-            order = np.lexsort((np.arange(delta.size), delta))
-            for k in order:
-                new, ends = self._apply(tour, int(kind[k]), int(a[k]), int(b[k]), int(rev[k]))
-                if self.feasible(new):
-                    tour = new
-                    if marked is not None:
+            made = False
+            if moves is not None:
+                delta, kind, a, b, rev = moves
+                for k in np.lexsort((np.arange(delta.size), delta)):
+                    new, ends = self._apply(tour, int(kind[k]), int(a[k]), int(b[k]),
+                                            int(rev[k]))
+                    if self.feasible(new):
+                        tour, made = new, True
                         marked[ends] = True
-                    break
-            else:
-                return tour
+                        break
+            if not made:
+                marked[tour[take]] = False
         return tour
 
     def iterate(self, tour: np.ndarray, rounds: int) -> np.ndarray:

@@ -369,7 +369,7 @@ def _check_clearance(
         keep = (first[avoided[o]] <= leg) & (leg <= last[avoided[o]])  # present on that leg
         h, o = h[keep], o[keep]
         d = shapely.distance(hulls[h], geoms[o]) - radius[o]
-        keep = ~(d > reach)
+        keep = ~(d > reach) | ~np.isfinite(d)  # a non-finite distance is never trusted
         return h[keep], o[keep], d[keep]
 
     # stage 1: segments whose whole-footprint hull (swept) comes near a present obstacle
@@ -394,7 +394,7 @@ def _check_clearance(
     fine = _swept(p[fine_seg], q[fine_seg], pieces)
     f, o_f, d = near(fine, fine_seg)
     required = head.margin - tol
-    bad = ~(d >= required)
+    bad = ~(d >= required) | ~np.isfinite(d)
     if required <= 0:  # no clearance asked for: an overlap of a polygon's interior is unsafe
         touch = np.flatnonzero(~is_circle[o_f] & (d <= 0))
         bad[touch] |= shapely.relate_pattern(fine[f[touch]], geoms[o_f[touch]], "T********")

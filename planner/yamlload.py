@@ -652,20 +652,99 @@ def _too_deep(value: Any, max_depth: int) -> tuple[PathPart, ...] | None:
 
 
 def check_schema(
-    value: Any, schema_file: str, definition: str | None = None, delegate: Sequence[str] = ()
+    value: Any,
+    schema_file: str,
+    definition: str | None = None,
+    delegate: Sequence[str] = (),
+    dedupe: Sequence[str] = (),
 ) -> None:
     """Raise a `Problem` for the most relevant way `value` breaks the packaged JSON Schema.
 
     `definition` picks one of the schema's `$defs` (config.schema.json holds one per file).
     `delegate` names `$defs` the caller has checked itself (the vertex lists, in numpy): they
-    accept anything here, so jsonschema never walks 100,000 vertices.
+    accept anything here, so jsonschema never walks 100,000 vertices. `dedupe` names top-level
+    lists whose items are checked once per distinct form (see `_form`) when that is sound.
     """
     from jsonschema.exceptions import best_match
 
     root, validator = _validator(schema_file, definition, tuple(delegate))
+    value, places = _deduplicated(value, validator.schema, dedupe)
     error = best_match(validator.iter_errors(value))
     if error is not None:
-        raise _schema_problem(error, root)
+        problem = _schema_problem(error, root)
+        if len(problem.path) >= 2 and (problem.path[0], problem.path[1]) in places:
+            problem.path = (problem.path[0], places[problem.path[:2]], *problem.path[2:])
+        raise problem
+
+
+def _form(value: Any) -> Any:
+    """What a JSON Schema whose number limits are all 0 can tell apart: structure, keys, text,
+    true/false/null verbatim, and of each number only its type and sign."""
+    kind = type(value)
+    if kind is dict:
+        return ("d", tuple((k, _form(v)) for k, v in value.items()))
+    if kind is list:
+        return ("l", tuple(_form(v) for v in value))
+    if kind is int or kind is float:
+        if value != value:
+            return ("nan",)
+        return (kind.__name__, (value > 0) - (value < 0))
+    return (kind.__name__, value)
+
+
+_NUMERIC_LIMITS = ("minimum", "maximum", "exclusiveMinimum", "exclusiveMaximum")
+
+
+def _form_decides(schema: Any) -> bool:
+    """True when `_form` keeps everything `schema` can check: no number limit but 0, no integer
+    type, no multiple-of, no numeric const/enum, no uniqueness among items."""
+    stack = [schema]
+    while stack:
+        item = stack.pop()
+        if isinstance(item, list):
+            stack.extend(item)
+        elif isinstance(item, dict):
+            for key, sub in item.items():
+                if key in ("description", "examples", "title"):
+                    continue
+                if key in _NUMERIC_LIMITS and sub != 0 or key in ("multipleOf", "uniqueItems"):
+                    return False
+                if key == "type" and "integer" in (sub if isinstance(sub, list) else [sub]):
+                    return False
+                if key in ("const", "enum"):
+                    values = sub if key == "enum" else [sub]
+                    if any(isinstance(v, int | float) and not isinstance(v, bool) for v in values):
+                        return False
+                stack.append(sub)
+    return True
+
+
+def _deduplicated(value: Any, schema: dict, keys: Sequence[str]
+                  ) -> tuple[Any, dict[tuple[str, int], int]]:
+    """`value` with the listed top-level lists cut to one item per form, and where each came from.
+
+    Only done when the list's item schema passes `_form_decides`: then every item shares the
+    verdict of the item of its form that is checked.
+    """
+    places: dict[tuple[str, int], int] = {}
+    if not keys or not isinstance(value, dict):
+        return value, places
+    value = dict(value)
+    for key in keys:
+        items = value.get(key)
+        item_schema = schema.get("properties", {}).get(key, {}).get("items")
+        if not isinstance(items, list) or item_schema is None or not _form_decides(item_schema):
+            continue
+        seen: set = set()
+        kept = []
+        for i, item in enumerate(items):
+            form = _form(item)
+            if form not in seen:
+                seen.add(form)
+                places[(key, len(kept))] = i
+                kept.append(item)
+        value[key] = kept
+    return value, places
 
 
 _VALIDATORS: dict[tuple, tuple[dict, Any]] = {}

@@ -9,6 +9,7 @@ from hypothesis import strategies as st
 
 from planner.config import Settings
 from planner.model import FINISH, START, Leg, Route, Unreachable
+from planner.routefile import round_to_resolution
 
 HEX = "0123456789abcdef" * 4
 
@@ -23,11 +24,11 @@ def make_route(stops: list[tuple[str, list[tuple[float, float]]]], units: str = 
                scene_file: str = "job-0412.yaml") -> Route:
     """Legs from (to_id, points) pairs; each leg starts where the previous ended (or at start).
 
-    The first entry's points include the start point. Points are snapped to the resolution as
-    the planner does (round to the nearest multiple).
+    The first entry's points include the start point. Points are snapped to the output grid as
+    the planner does (the route file's round_to_resolution).
     """
     def snap(p):
-        return tuple(float(v) for v in np.round(np.asarray(p, float) / resolution) * resolution)
+        return tuple(float(v) for v in round_to_resolution(np.asarray(p, float), resolution))
 
     legs = []
     prev_id, prev_pt = START, None

@@ -77,15 +77,28 @@ def test_fixed_decimals_dot_mark_and_no_comment_lines():
     assert body[1].endswith(",1.50,-2.25")
 
 
-def test_inch_routes_name_the_unit_in_the_columns_and_keep_every_digit_needed():
-    # 0.001 mm expressed in inch is no decimal step: 8 decimals keep the checked values.
+def test_inch_routes_name_the_unit_in_the_columns_and_use_the_route_files_grid():
+    # 0.001 mm expressed in inch is no decimal step: the planner's grid is 0.00001 inch.
     resolution = 0.001 / 25.4
     route = make_route([("t1", [(1, 1), (2.000039370, 3)])], units="inch", resolution=resolution)
     text = ADAPTER.write(route, {}, job_for("inch", resolution))
     assert text.splitlines()[0] == "seq,leg,kind,target,x_in,y_in"
     rows = rows_of(text)
-    assert len(rows[1]["x_in"].split(".")[1]) == 8
-    assert abs(float(rows[1]["x_in"]) - route.legs[0].points[1][0]) <= resolution * 1e-3
+    assert rows[1]["x_in"] == "2.00004"
+    assert float(rows[1]["x_in"]) == route.legs[0].points[1][0]
+
+
+def test_a_point_off_the_output_grid_is_refused_not_moved():
+    route = make_route([("t1", [(0, 0), (5, 5)])])
+    leg = route.legs[0]
+    off = leg.__class__(from_id="start", to_id="t1", points=((0, 0), (5.0004, 5)), length=7.1)
+    route = route.__class__(**{**route.__dict__, "legs": (off,)})
+    with pytest.raises(AdapterError, match="not on the output grid"):
+        ADAPTER.write(route, {}, job_for("mm", 0.001))
+    from adapters.gcode import GcodeMoves
+
+    with pytest.raises(AdapterError, match="not on the output grid"):
+        GcodeMoves().write(route, {}, job_for("mm", 0.001))
 
 
 def test_semicolon_and_crlf_for_controllers_that_need_them():

@@ -172,12 +172,15 @@ def test_decimals_may_be_finer_but_never_coarser_than_the_output_resolution():
         ADAPTER.write(route, {"decimals": 2}, job_for("mm", 0.001))
     assert "adapter_settings.gcode.decimals" in format_error(info.value)
     assert "at least 3" in format_error(info.value)
-    # 0.001 mm in inch is no decimal step: auto writes 8 decimals, 5 would lose checked digits.
+    # 0.001 mm in inch is no decimal step: the planner's grid is 0.00001 inch, so auto writes 5
+    # decimals and 4 would lose checked digits.
     res = 0.001 / 25.4
     inch = sample_route(units="inch", resolution=res)
-    check_program(ADAPTER.write(inch, {}, job_for("inch", res)), inch, res)
+    text = ADAPTER.write(inch, {}, job_for("inch", res))
+    check_program(text, inch, res)
+    assert re.search(r"^G1 X\d+\.\d{5} Y\d+\.\d{5}", text, re.M)
     with pytest.raises(AdapterSettingsError):
-        ADAPTER.write(inch, {"decimals": 5}, job_for("inch", res))
+        ADAPTER.write(inch, {"decimals": 4}, job_for("inch", res))
 
 
 def test_line_numbers_stop_at_five_digits_with_a_clear_message():

@@ -7,14 +7,15 @@ through importlib.metadata exactly as the built-ins' are; nothing in this reposi
 from __future__ import annotations
 
 import os
+import re
 import subprocess
 import sys
 from importlib.metadata import distribution
 from pathlib import Path
 
 import pytest
-
 from _adapter_routes import polyline, sample_route
+
 from adapters import adapter_entries, enabled_adapters, installed_adapters
 from planner.errors import ConfigError
 from planner.routefile import load_route
@@ -133,12 +134,12 @@ def test_plan_writes_the_plugin_file_beside_the_route(plugin_dir, tmp_path):
     config = tmp_path / "config"
     config.mkdir()
     (config / "heads.yaml").write_text((REPO / "config" / "heads.yaml").read_text())
-    planner_yaml = (REPO / "config" / "planner.yaml").read_text()
-    planner_yaml = planner_yaml.replace("adapters: [csv, gcode]",
-                                        "adapters: [csv, gcode, plc]", 1)
-    planner_yaml = planner_yaml.replace("adapter_settings:", "adapter_settings:\n  plc:\n"
-                                        "    separator: \";\"", 1)
-    (config / "planner.yaml").write_text(planner_yaml)
+    text = (REPO / "config" / "planner.yaml").read_text()
+    text, n = re.subn(r"^adapters: \[", "adapters: [plc, ", text, count=1, flags=re.M)
+    text, m = re.subn(r"^adapter_settings:.*$", "adapter_settings:\n  plc:\n    separator: \";\"",
+                      text, count=1, flags=re.M)
+    assert n == m == 1
+    (config / "planner.yaml").write_text(text)
     scene = REPO / "planner" / "demo" / "pick-place-fixtures.yaml"
     out = tmp_path / "out"
     run = _cli("plan", str(scene), "--out", str(out), "--config", str(config),

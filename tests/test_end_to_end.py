@@ -45,7 +45,7 @@ def test_demo_scene_plans_and_its_route_file_passes_the_safety_check(scene: Path
     loaded = load_scene(scene, settings)
     assert route.scene_sha256 == loaded.sha256
     # Independent check of the file as written (not the in-memory route).
-    assert verify_route(route, loaded, tolerance=1e-6) == []
+    assert verify_route(route, loaded, tolerance=1e-6, resolution=0.001) == []
     assert math.isclose(data["length"], sum(leg["length"] for leg in data["legs"]), abs_tol=0.01)
 
 

@@ -182,6 +182,32 @@ def test_large_scene_matches_pyyaml():
     assert [list(map(list, o.polygon)) for o in scene.obstacles] == [o["polygon"] for o in expected]
 
 
+@pytest.mark.parametrize("flow", [False, None, True])
+def test_pyyaml_dump_styles_load_as_pyyaml_reads_them(flow):
+    rings = [[[i * 40 + 10 * math.cos(k / 3), 200 + 10 * math.sin(k / 3) - i] for k in range(19)]
+             for i in range(12)]
+    data = make_scene_dict(obstacles=[{"polygon": r} for r in rings],
+                           targets=[[900, 400], [-0.0, 0.5], [1e-3, 2.5e2]])
+    text = yaml.safe_dump(data, default_flow_style=flow)
+    scene = load_scene_bytes(text.encode(), "job.yaml", SETTINGS)
+    # PyYAML's own loader is the reference for what its dumper wrote
+    expected = yaml.load(text, Loader=yaml.SafeLoader)
+    assert [list(map(list, o.polygon)) for o in scene.obstacles] == [
+        o["polygon"] for o in expected["obstacles"]]
+    assert [list(t.at) for t in scene.targets] == expected["targets"]
+
+
+def test_the_bad_one_among_many_alike_is_named():
+    obstacles = [{"circle": {"center": [10.0 * i, 20.0], "radius": 3.0}} for i in range(60)]
+    obstacles[37]["circle"]["radius"] = -3.0
+    obstacles[45]["circle"]["radius"] = -1.0
+    err = bad(yaml.safe_dump(make_scene_dict(obstacles=obstacles)))
+    assert err.path == "obstacles[37].circle.radius"
+    obstacles[37]["circle"]["radius"] = 3.0
+    err = bad(json.dumps(make_scene_dict(obstacles=obstacles)), "job.json")
+    assert err.path == "obstacles[45].circle.radius"
+
+
 # YAML 1.2.2 spec, section 10.3.2 (core schema tag resolution): these plain scalars resolve so.
 @pytest.mark.parametrize(
     "text, value",
@@ -514,6 +540,53 @@ def test_missing_file():
     with pytest.raises(SceneError) as info:
         load_scene(Path("/nonexistent/dir/job.yaml"), SETTINGS)
     assert "cannot read" in info.value.message
+
+
+# ------------------------------------------------------- the fast path reads what is written
+
+_NUMBER = st.one_of(st.integers(-10**6, 10**6), st.floats(-1e6, 1e6, allow_nan=False))
+_NUMBER_TREES = st.recursive(
+    _NUMBER,
+    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(
+        st.text("abcxyz_", min_size=1, max_size=4), inner, max_size=3),
+    max_leaves=30,
+)
+_COMMENTS = st.sampled_from(["", "# [[1, 2], [3, 4]]", "  # - - 1", "# - [5, 6]"])
+
+
+def _with_comment(text: str, at: int, comment: str) -> str:
+    lines = text.split("\n")
+    lines.insert(at % len(lines), comment)
+    return "\n".join(lines)
+
+
+@hsettings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(_NUMBER_TREES, st.sampled_from([False, None, True]), st.integers(0, 40), _COMMENTS)
+def test_fast_path_reads_numbers_as_pyyaml_does(value, flow, at, comment):
+    from planner.yamlload import _parse_yaml
+
+    text = _with_comment(yaml.safe_dump({"v": value}, default_flow_style=flow), at, comment)
+    # PyYAML's SafeLoader is the reference: for plain decimals YAML 1.1 and 1.2 agree
+    assert _parse_yaml(text, Limits(max_depth=64)) == yaml.load(text, Loader=yaml.SafeLoader)
+
+
+_ATOMS = st.sampled_from(["[", "]", ",", " ", "\n", "- ", "  ", "1", "-2.5", ".5", "7.", "+3",
+                          "1e3", "#", "a: ", "'", '"', "|", "&a ", "*a", "{", "}", ":", "x"])
+
+
+@hsettings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(_ATOMS, max_size=40))
+def test_fast_path_agrees_with_reading_the_text_as_written(parts):
+    from planner.yamlload import Problem, _Builder, _parse_yaml
+
+    text = "".join(parts)
+    results = []
+    for read in (lambda: _Builder(Limits()).run(text), lambda: _parse_yaml(text, Limits())):
+        try:
+            results.append(("value", read()))
+        except Problem as problem:
+            results.append(("problem", problem.message, problem.line, problem.column))
+    assert results[0] == results[1]
 
 
 # ------------------------------------------------------------------ only SceneError escapes

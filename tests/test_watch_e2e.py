@@ -176,6 +176,7 @@ def test_removed_scene_takes_its_outputs_to_superseded(env: Daemon):
     make_polling = env.config / "planner.yaml"
     planner = yaml.safe_load(make_polling.read_text())
     planner["watch"]["observer"] = "polling"  # network-share mode, so the option is exercised
+    planner["watch"]["log_file"] = "watch.log"  # and the log goes into OUT instead of stderr
     make_polling.write_text(yaml.safe_dump(planner, sort_keys=False))
     env.start()
     text = scene_text()
@@ -188,6 +189,9 @@ def test_removed_scene_takes_its_outputs_to_superseded(env: Daemon):
     moved = {p.name.split(".20")[0] for p in (env.out / "superseded").iterdir()}
     assert set(files) <= moved
     assert env.stop() == 0
+    log = (env.out / "watch.log").read_text()
+    assert "gone.yaml: removed from the drop folder" in log and "stopped cleanly" in log
+    assert env.text() == ""
 
 
 def test_links_temp_files_and_own_outputs_are_never_planned(env: Daemon, tmp_path):
@@ -205,6 +209,17 @@ def test_links_temp_files_and_own_outputs_are_never_planned(env: Daemon, tmp_pat
     assert set(status["scenes"]) == {"real.yaml"}
     assert sorted(p.name for p in env.out.glob("*.route.yaml")) == ["real.route.yaml"]
     assert "link.yaml: not a plain file" in env.text()
+    # Names are made safe; two scenes that would share output names are not both planned.
+    odd = "Job #7 (rev 2).yaml"
+    (env.drop / odd).write_text(text)
+    env.wait_state(odd, text)
+    assert (env.out / "Job__7__rev_2_.route.yaml").is_file()
+    (env.drop / "real.yml").write_text(text)
+    clash = wait_for(lambda: (env.entry("real.yml") or {}).get("state") == "invalid" and
+                     env.entry("real.yml"), 10, "the name clash to be reported")
+    assert "already used by real.yaml" in clash["message"]
+    assert route_of(env.out, "real")["scene"] == "real.yaml"
+    assert all(p.parent == env.out for p in env.out.iterdir())
     assert env.stop() == 0
 
 
@@ -250,6 +265,25 @@ def test_only_new_targets_reuse_the_free_space(env: Daemon):
     env.wait_state("reuse.yaml", moved_obstacle)
     lines = [line for line in env.text().splitlines() if " planned reuse.yaml:" in line]
     assert "reused" not in lines[2]
+    assert env.stop() == 0
+
+
+def test_broken_config_retires_every_route_until_it_is_fixed(env: Daemon):
+    env.start()
+    text = scene_text()
+    (env.drop / "cfg.yaml").write_text(text)
+    env.wait_state("cfg.yaml", text)
+    heads = env.config / "heads.yaml"
+    good = heads.read_text()
+    heads.write_text(good.replace("laser-slim:", "laser-slim: [", 1))  # a YAML syntax error
+    wait_for(lambda: read_status(env.out)["config"]["state"] == "invalid", 10, "the bad config")
+    wait_for(lambda: env.entry("cfg.yaml")["state"] == "invalid", 10, "the scene to be invalid")
+    assert not (env.out / "cfg.route.yaml").exists()
+    assert "heads.yaml" in (env.out / "cfg.error.txt").read_text()
+    heads.write_text(good)
+    wait_for(lambda: (env.out / "cfg.route.yaml").exists(), 10, "the route to come back")
+    assert not (env.out / "cfg.error.txt").exists()
+    assert read_status(env.out)["config"]["state"] == "ok"
     assert env.stop() == 0
 
 

@@ -27,6 +27,10 @@ from .polygons import (
 
 __all__ = ["convex_decomposition", "triangulate", "merge_faces"]
 
+# Below this many diagonals a vectorised round costs more than trying them one by one.
+_ROUND_AT_LEAST = 32
+
+
 def _cleaned(polygons: np.ndarray, exteriors: Rings, which: np.ndarray) -> np.ndarray:
     """Polygons `which` rebuilt from their cleaned exteriors, holes kept as given."""
     return np.array([shapely.Polygon(exteriors.ring(i), [r.coords for r in polygons[i].interiors])
@@ -58,8 +62,8 @@ def merge_faces(faces: Rings, owner: np.ndarray) -> tuple[Rings, np.ndarray]:
     the polygon of each. Returns the merged pieces as counter-clockwise rings and each piece's
     owner. One pass suffices: a diagonal that cannot be removed now never can later, since
     merging only widens the angles at its ends. Diagonals between two convex corners of the
-    polygon always go (all at once, vectorised); the rest are tried one by one, those touching
-    one reflex corner first, shorter first.
+    polygon always go (all at once, vectorised); the rest are tried in priority order, in
+    vectorised rounds of diagonals that share no end point and then one by one.
     """
     if len(faces) == 0:
         return faces, np.zeros(0, dtype=np.int64)
@@ -110,10 +114,34 @@ def merge_faces(faces: Rings, owner: np.ndarray) -> tuple[Rings, np.ndarray]:
     prv = np.full(n_he, -1, dtype=np.int64)
     prv[nxt[alive_idx]] = alive_idx
 
-    # Phase 2: the diagonals at reflex corners, one at a time.
+    # Phase 2: the diagonals at reflex corners in priority order (one reflex end before two,
+    # shorter first). Diagonals sharing no end point do not affect each other's test or update,
+    # so each round takes, vectorised, every diagonal that comes first at both of its ends;
+    # when rounds get small (fans around one vertex) the rest go one by one.
     rest = np.flatnonzero(~easy)
     length = np.hypot(*(vxy[org[first[rest]]] - vxy[org[second[rest]]]).T)
     rest = rest[np.lexsort((length, n_reflex[rest]))]
+    rank = np.arange(len(rest))
+    best = np.empty(len(vxy), dtype=np.int64)
+    while len(rest) >= _ROUND_AT_LEAST:
+        h, g = first[rest], second[rest]
+        u, v = org[h], org[g]
+        best[u] = len(vxy)
+        best[v] = len(vxy)
+        np.minimum.at(best, u, rank)
+        np.minimum.at(best, v, rank)
+        now = (best[u] == rank) & (best[v] == rank)
+        if now.sum() < _ROUND_AT_LEAST:
+            break
+        h, g = h[now], g[now]
+        ph, nh, pg, ng = prv[h], nxt[h], prv[g], nxt[g]
+        ok = _left_turns(vxy, org[ph], org[h], org[nxt[ng]])
+        ok &= _left_turns(vxy, org[pg], org[g], org[nxt[nh]])
+        ph, nh, pg, ng = ph[ok], nh[ok], pg[ok], ng[ok]
+        nxt[ph], prv[ng], nxt[pg], prv[nh] = ng, ph, nh, pg
+        dead[h[ok]] = dead[g[ok]] = True
+        rest, rank = rest[~now], rank[~now]
+
     nxt_l, prv_l, org_l = nxt.tolist(), prv.tolist(), org.tolist()
     xs, ys = vxy[:, 0].tolist(), vxy[:, 1].tolist()
     removed: list[int] = []
@@ -126,7 +154,7 @@ def merge_faces(faces: Rings, owner: np.ndarray) -> tuple[Rings, np.ndarray]:
         scale = max(abs(xs[q]), abs(ys[q]))
         return ux * vy - uy * vx >= -REL_NOISE * (lu * lv + (lu + lv) * scale)
 
-    for h, g in zip(first[rest].tolist(), second[rest].tolist(), strict=True):
+    for h, g in zip(first[rest].tolist(), second[rest].tolist(), strict=True):  # one by one
         # h runs u -> v in one piece, g runs v -> u in the other.
         ph, nh, pg, ng = prv_l[h], nxt_l[h], prv_l[g], nxt_l[g]
         if not convex_at(org_l[ph], org_l[h], org_l[nxt_l[ng]]):
@@ -138,6 +166,16 @@ def merge_faces(faces: Rings, owner: np.ndarray) -> tuple[Rings, np.ndarray]:
     dead[removed] = True
     nxt = np.asarray(nxt_l, dtype=np.int64)
     return _faces(nxt, np.flatnonzero(~dead), vxy[org], he_owner)
+
+
+def _left_turns(xy: np.ndarray, p: np.ndarray, q: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Left turn (or straight) at q on the way p -> q -> r, up to rounding noise."""
+    u = xy[q] - xy[p]
+    w = xy[r] - xy[q]
+    cross = u[:, 0] * w[:, 1] - u[:, 1] * w[:, 0]
+    lu, lw = np.hypot(u[:, 0], u[:, 1]), np.hypot(w[:, 0], w[:, 1])
+    scale = np.abs(xy[q]).max(axis=1)
+    return cross >= -REL_NOISE * (lu * lw + (lu + lw) * scale)
 
 
 def _faces(nxt: np.ndarray, alive: np.ndarray, start_xy: np.ndarray, he_owner: np.ndarray

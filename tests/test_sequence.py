@@ -1,0 +1,245 @@
+"""Tour order against outside references: the exact optimum by brute force over permutations
+(itertools) and the LKH-3 heuristic (through elkai, a test-only dependency), on obstacle-free
+and obstacle-rich cost matrices; and the constraints (pins, `after:`) against a plain check."""
+
+from __future__ import annotations
+
+import itertools
+
+import elkai
+import numpy as np
+import pytest
+import yaml
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from benchmarks.scenes import random_scene
+from planner.config import load_settings
+from planner.model import Target
+from planner.plan import free_space_and_roadmap
+from planner.scene import load_scene_bytes
+from planner.sequence import (
+    Precedence,
+    order_cost,
+    order_problems,
+    precedence_of,
+    shortest_order,
+)
+from tests.helpers import REPO_CONFIG
+
+
+def euclidean(points: np.ndarray) -> np.ndarray:
+    d = points[:, None, :] - points[None, :, :]
+    return np.hypot(d[..., 0], d[..., 1])
+
+
+def random_instance(rng: np.random.Generator, n: int, has_finish: bool) -> np.ndarray:
+    """Start, n targets (and a finish) uniformly on a 1000 x 600 table: the Euclidean matrix."""
+    pts = rng.uniform((0, 0), (1000, 600), (n + 1 + int(has_finish), 2))
+    return euclidean(pts)
+
+
+def respects(order, level, before) -> bool:
+    """The test's own constraint check: levels never go down, each (a, b) has a before b."""
+    pos = {t: i for i, t in enumerate(order)}
+    if any(level[x] > level[y] for x, y in zip(order, order[1:], strict=False)):
+        return False
+    return all(pos[a] < pos[b] for a, b in before)
+
+
+def brute_force(cost: np.ndarray, has_finish: bool, level=None, before=()) -> float:
+    """The exact optimum over every permutation of the targets (itertools), constraints kept."""
+    n = cost.shape[0] - 1 - int(has_finish)
+    level = level or [1] * n
+    best = np.inf
+    for perm in itertools.permutations(range(n)):
+        if not respects(perm, level, before):
+            continue
+        nodes = [0, *(t + 1 for t in perm)] + ([n + 1] if has_finish else [])
+        best = min(best, float(cost[nodes[:-1], nodes[1:]].sum()))
+    return best
+
+
+def lkh_order(cost: np.ndarray, has_finish: bool) -> list[int]:
+    """LKH-3 (elkai) on the same matrix: the open path from start to finish (or to any target)
+    becomes a closed tour by a return edge finish -> start that is the only way back."""
+    n = cost.shape[0] - 1 - int(has_finish)
+    size = n + 2
+    full = np.zeros((size, size))
+    full[: n + 1, : n + 1] = cost[: n + 1, : n + 1]
+    if has_finish:
+        full[: n + 1, n + 1] = cost[: n + 1, n + 1]
+    weights = np.rint(full * 1000).astype(np.int64)  # LKH works on integers: micrometres
+    big = int(weights.max()) * size + 1
+    weights[size - 1, :] = big
+    weights[:, 0] = big
+    weights[size - 1, 0] = 0
+    np.fill_diagonal(weights, 0)
+    tour = elkai.DistanceMatrix(weights.tolist()).solve_tsp(runs=3)[:-1]
+    k = tour.index(0)
+    tour = tour[k:] + tour[:k]
+    assert tour[-1] == size - 1
+    return [v - 1 for v in tour[1:-1]]
+
+
+def random_constraints(rng: np.random.Generator, n: int):
+    """Some pins and an acyclic set of after-pairs consistent with the pins."""
+    level = [1] * n
+    for k in rng.choice(n, size=min(n, 2), replace=False):
+        level[int(k)] = int(rng.choice([0, 2]))
+    order = sorted(range(n), key=lambda t: (level[t], rng.random()))  # one feasible order
+    before = []
+    for _ in range(int(rng.integers(0, n))):
+        i, j = sorted(rng.choice(n, size=2, replace=False))
+        before.append((order[i], order[j]))
+    return level, before
+
+
+# Exact optimum by brute force over permutations (itertools), up to 8 targets, with and without
+# a finish and with random pins and after-constraints: at most 2% longer on average.
+def test_close_to_brute_force_on_average():
+    rng = np.random.default_rng(11)
+    ratios = []
+    for case in range(60):
+        n = int(rng.integers(2, 9))
+        has_finish = bool(case % 2)
+        cost = random_instance(rng, n, has_finish)
+        level, before = random_constraints(rng, n) if case % 3 == 0 else ([1] * n, [])
+        prec = Precedence(level=tuple(level), before=tuple(before))
+        order = shortest_order(cost, has_finish=has_finish, precedence=prec)
+        assert sorted(order) == list(range(n))
+        assert respects(order, level, before)
+        ratios.append(order_cost(cost, order, has_finish) / brute_force(cost, has_finish, level,
+                                                                         before))
+    assert min(ratios) >= 1 - 1e-9
+    assert np.mean(ratios) <= 1.02
+
+
+# Exact optimum by brute force (itertools) on random instances, asymmetric costs included:
+# never more than 10% longer.
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    n=st.integers(1, 8),
+    has_finish=st.booleans(),
+    asymmetric=st.booleans(),
+)
+def test_never_far_from_brute_force(seed: int, n: int, has_finish: bool, asymmetric: bool):
+    rng = np.random.default_rng(seed)
+    cost = random_instance(rng, n, has_finish)
+    if asymmetric:
+        cost = cost * rng.uniform(0.5, 1.5, cost.shape)
+    order = shortest_order(cost, has_finish=has_finish)
+    assert sorted(order) == list(range(n))
+    assert order_cost(cost, order, has_finish) <= 1.10 * brute_force(cost, has_finish) + 1e-9
+
+
+def obstacle_matrix(n_targets: int, seed: int) -> np.ndarray:
+    """Shortest collision-free path lengths between start, targets and finish of a seeded
+    random scene with obstacles, from the road map (one search per point)."""
+    config = load_settings(REPO_CONFIG)
+    scene_dict = random_scene(3000, seed=seed, n_targets=n_targets)
+    scene = load_scene_bytes(yaml.safe_dump(scene_dict).encode(), "random.yaml", config)
+    _, roadmap = free_space_and_roadmap(scene, config.in_units(scene.units))
+    pts = np.array([scene.start, *(t.at for t in scene.targets), scene.finish])
+    cost = np.array([roadmap.distances_from(tuple(p), pts) for p in pts])
+    keep = np.flatnonzero(np.isfinite(cost[0]))  # targets the start can reach
+    return cost[np.ix_(keep, keep)]
+
+
+@pytest.fixture(scope="module")
+def lkh_instances():
+    rng = np.random.default_rng(5)
+    cases = [(random_instance(rng, n, has_finish), has_finish)
+             for n, has_finish in ((20, True), (50, False), (100, True), (200, True),
+                                   (200, False))]
+    cases += [(obstacle_matrix(n, seed), True) for n, seed in ((40, 3), (120, 4))]
+    return cases
+
+
+# LKH-3 (Helsgaun's heuristic, through elkai) on the same cost matrices, obstacle-free and
+# obstacle-rich, 20 to 200 targets: our tours at most 3% longer on average.
+def test_close_to_lkh_on_average(lkh_instances):
+    ratios = []
+    for cost, has_finish in lkh_instances:
+        order = shortest_order(cost, has_finish=has_finish)
+        ref = lkh_order(cost, has_finish)
+        ratios.append(order_cost(cost, order, has_finish) / order_cost(cost, ref, has_finish))
+    assert np.mean(ratios) <= 1.03, ratios
+    assert max(ratios) <= 1.06, ratios
+
+
+def test_obstacles_make_the_matrix_differ_from_straight_lines(lkh_instances):
+    """The obstacle-rich instances really are: some paths bend round obstacles."""
+    cost, _ = lkh_instances[-1]
+    assert np.all(np.isfinite(cost))
+    assert np.allclose(cost, cost.T, rtol=1e-9, atol=1e-6)  # the road map is undirected
+
+
+def test_same_matrix_same_order():
+    rng = np.random.default_rng(2)
+    cost = random_instance(rng, 60, True)
+    assert shortest_order(cost, has_finish=True) == shortest_order(cost.copy(), has_finish=True)
+
+
+def test_better_than_given_order_and_endpoints_fixed():
+    rng = np.random.default_rng(3)
+    cost = random_instance(rng, 30, True)
+    order = shortest_order(cost, has_finish=True)
+    assert order_cost(cost, order, True) < order_cost(cost, list(range(30)), True)
+
+
+def test_missing_connections_are_avoided():
+    # Hand-made: four targets on a line; the direct 0->2 and 1->3 links are missing (inf).
+    pts = np.array([[0.0, 0.0], [1, 0], [2, 0], [3, 0], [4, 0]])
+    cost = euclidean(pts)
+    cost[1, 3] = cost[3, 1] = np.inf
+    order = shortest_order(cost, has_finish=False)
+    assert np.isfinite(order_cost(cost, order, False))
+    assert order == [0, 1, 2, 3]
+
+
+def test_pins_and_after_are_kept_on_large_instances():
+    rng = np.random.default_rng(8)
+    n = 80
+    cost = random_instance(rng, n, True)
+    level, before = random_constraints(rng, n)
+    order = shortest_order(cost, has_finish=True,
+                           precedence=Precedence(level=tuple(level), before=tuple(before)))
+    assert sorted(order) == list(range(n))
+    assert respects(order, level, before)
+
+
+def targets(*specs) -> tuple[Target, ...]:
+    return tuple(Target(id=tid, at=(float(i), 0.0), **kw) for i, (tid, kw) in enumerate(specs))
+
+
+def test_precedence_of_scene_targets():
+    ts = targets(("a", {}), ("b", {"after": "c"}), ("c", {"first": True}), ("d", {"last": True}))
+    prec = precedence_of(ts)
+    assert prec.level == (1, 1, 0, 2)
+    assert prec.before == ((2, 1),)
+    assert prec.restricted([1, 2]).before == ((1, 0),)
+    assert order_problems(ts, "shortest") == []
+
+
+def test_contradictions_are_reported():
+    cyc = order_problems(targets(("a", {"after": "c"}), ("b", {"after": "a"}),
+                                 ("c", {"after": "b"})), "shortest")
+    assert len(cyc) == 1 and "cycle" in cyc[0].message and cyc[0].field == "after"
+    pin = order_problems(targets(("a", {}), ("b", {"first": True, "after": "a"})), "shortest")
+    assert pin and pin[0].index == 1 and "pins contradict" in pin[0].message
+    unknown = order_problems(targets(("a", {"after": "zz"})), "shortest")
+    assert unknown[0].field == "after" and "zz" in unknown[0].message
+    both = order_problems(targets(("a", {"first": True, "last": True}), ("b", {})), "shortest")
+    assert both[0].field == "last"
+
+
+def test_given_order_must_already_satisfy_the_constraints():
+    late = targets(("a", {"after": "b"}), ("b", {}))
+    assert order_problems(late, "shortest") == []
+    given_problems = order_problems(late, "given")
+    assert given_problems and given_problems[0].index == 0
+    pinned = targets(("a", {}), ("b", {"first": True}))
+    assert order_problems(pinned, "given")[0].field == "first"
+    assert order_problems(targets(("a", {"first": True}), ("b", {})), "given") == []
