@@ -50,9 +50,19 @@ def _config(folder: Path, settle: float, observer: str) -> Path:
     return folder
 
 
+class _NoAliases(yaml.SafeDumper):
+    """Scenes refuse YAML aliases; write repeated values (start == finish) out in full."""
+
+    def ignore_aliases(self, data) -> bool:
+        return True
+
+
+def _dump(data: dict) -> str:
+    return yaml.dump(data, Dumper=_NoAliases, sort_keys=False, default_flow_style=None)
+
+
 def _big_scene(seed: int, vertices: int) -> str:
-    return yaml.safe_dump(random_scene(vertices, seed, "sparse", n_targets=10),
-                          sort_keys=False, default_flow_style=None)
+    return _dump(random_scene(vertices, seed, "sparse", n_targets=10))
 
 
 def _small_scene(i: int) -> str:
@@ -69,7 +79,7 @@ def _with_new_targets(text: str) -> str:
     """The same scene with its targets in the opposite order: obstacles, head, travel unchanged."""
     data = yaml.safe_load(text)
     data["targets"] = list(reversed(data["targets"]))
-    return yaml.safe_dump(data, sort_keys=False, default_flow_style=None)
+    return _dump(data)
 
 
 def _wait_route(out: Path, stem: str, sha: str, timeout: float) -> float:

@@ -14,7 +14,7 @@ import numpy as np
 from .config import Settings, effective_config_sha256
 from .cspace import FreeSpace, build_free_space, free_space_key
 from .explain import Explainer
-from .model import FINISH, START, Leg, Point, Route, Scene, Unreachable
+from .model import FINISH, START, Leg, Point, Route, Scene, Travel, Unreachable
 from .roadmap import NoPath, Roadmap, build_roadmap
 from .routefile import round_to_resolution
 from .verify import verify_or_raise
@@ -103,7 +103,7 @@ def plan_scene(
         except NoPath as exc:
             unreachable.append(explainer.unreachable(exc, current_id, stop_id, free))
             continue
-        legs.append(_rounded_leg(current_id, stop_id, pts, settings))
+        legs.append(_rounded_leg(current_id, stop_id, pts, settings, scene.travel))
         current_id, current = stop_id, point
 
     route = Route(
@@ -120,9 +120,22 @@ def plan_scene(
     return PlanResult(route=route, scene=scene, settings=settings, free=free, roadmap=roadmap)
 
 
-def _rounded_leg(from_id: str, to_id: str, pts: np.ndarray, settings: Settings) -> Leg:
-    """A leg whose points are rounded to the output resolution; its length is the rounded one's."""
-    rounded = round_to_resolution(np.asarray(pts, dtype=float), settings.resolution)
+def _rounded_leg(
+    from_id: str, to_id: str, pts: np.ndarray, settings: Settings, travel: Travel
+) -> Leg:
+    """A leg whose points are rounded to the output resolution; its length is the rounded one's.
+
+    Rounded points are kept inside the travel limits: a limit that is not on the output grid is
+    replaced by the nearest grid value inside it.
+    """
+    res = settings.resolution
+    rounded = round_to_resolution(np.asarray(pts, dtype=float), res)
+    inner = np.array([
+        [np.ceil(travel.xmin / res - 1e-9), np.ceil(travel.ymin / res - 1e-9)],
+        [np.floor(travel.xmax / res + 1e-9), np.floor(travel.ymax / res + 1e-9)],
+    ]) * res
+    lo, hi = round_to_resolution(inner, res)
+    rounded = np.clip(rounded, lo, hi)
     keep = np.ones(len(rounded), dtype=bool)
     keep[1:] = np.any(rounded[1:] != rounded[:-1], axis=1)
     rounded = rounded[keep]

@@ -163,26 +163,47 @@ def _text_box(x: float, y: float, text: str, size: float, anchor: str = "start")
 
 
 class _Placer:
-    """Keeps labels off each other and off the point markers (boxes in page pixels)."""
+    """Keeps labels off each other and off the point markers (boxes in page pixels).
+
+    Boxes are kept in a grid of cells so that a query looks only at its neighbours.
+    """
+
+    _CELL = 64.0  # px
 
     def __init__(self, bounds: Box) -> None:
         self.bounds = bounds
-        self.taken: list[Box] = []
-        self.soft: list[Box] = []  # better not covered (obstacles), but allowed
+        self._grid: dict[tuple[int, int], list[tuple[Box, float]]] = {}
+
+    def _cells(self, box: Box):
+        x0, y0, x1, y1 = box
+        c = self._CELL
+        return itertools.product(range(int(x0 // c), int(x1 // c) + 1),
+                                 range(int(y0 // c), int(y1 // c) + 1))
+
+    def _put(self, box: Box, weight: float) -> None:
+        item = (box, weight)
+        for cell in self._cells(box):
+            self._grid.setdefault(cell, []).append(item)
 
     def add(self, box: Box) -> None:
-        self.taken.append(box)
+        self._put(box, 1.0)
 
     def avoid(self, box: Box) -> None:
-        self.soft.append(box)
+        """A place better not covered (an obstacle), but allowed."""
+        self._put(box, 0.2)
 
     def cost(self, box: Box, soft: bool = True) -> float:
         x0, y0, x1, y1 = box
         bx0, by0, bx1, by1 = self.bounds
         outside = max(0, bx0 - x0) + max(0, x1 - bx1) + max(0, by0 - y0) + max(0, y1 - by1)
         overlap = 0.0
-        for weight, boxes in ((1.0, self.taken), (0.2, self.soft if soft else [])):
-            for t0, u0, t1, u1 in boxes:
+        seen: set[int] = set()
+        for cell in self._cells(box):
+            for item in self._grid.get(cell, ()):
+                (t0, u0, t1, u1), weight = item
+                if id(item) in seen or (weight < 1.0 and not soft):
+                    continue
+                seen.add(id(item))
                 w = min(x1, t1) - max(x0, t0)
                 h = min(y1, u1) - max(y0, u0)
                 if w > 0 and h > 0:

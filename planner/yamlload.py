@@ -315,7 +315,7 @@ def _parse_yaml(text: str, limits: Limits) -> Any:
         try:
             builder = _Builder(limits, prefix, pieces)
             value = builder.run(fast)
-            if builder.used == len(pieces):
+            if len(builder.used) == len(pieces):  # every placeholder read back, once each
                 return value
         except (Problem, yaml.YAMLError, RecursionError, ValueError):
             pass  # the text as written gives the exact problem and place
@@ -330,7 +330,7 @@ class _Builder:
         self.max_aliases = limits.max_aliases
         self.prefix = prefix
         self.pieces = pieces or []
-        self.used = 0
+        self.used: set[int] = set()  # placeholders read back as whole values
         self.aliases = 0
         self.built = 0
         self.seen: set[int] = set()
@@ -448,8 +448,9 @@ class _Builder:
                     and item.value.startswith(splice) and item.value[len(splice):].isdigit()
                     and int(item.value[len(splice):]) < len(self.pieces)):
                 self._visit(item)
-                self.used += 1
-                text = self.pieces[int(item.value[len(splice):])]
+                index = int(item.value[len(splice):])
+                self.used.add(index)
+                text = self.pieces[index]
                 if depth > self.max_depth:
                     raise self._here(item, f"nested deeper than {self.max_depth} levels", None)
                 numbers = _numbers(_NUMBERS.findall(text))
@@ -470,7 +471,7 @@ class _Builder:
             if value_position and self.prefix and text.startswith(self.prefix):
                 index = text[len(self.prefix):]  # a splice (`s12`) here is not at its place
                 if index.isdigit() and int(index) < len(self.pieces):
-                    self.used += 1
+                    self.used.add(int(index))
                     return _number_list(self.pieces[int(index)])
             return plain_scalar(text)
         if tag not in _SCALAR_TAGS:

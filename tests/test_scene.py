@@ -208,6 +208,21 @@ def test_the_bad_one_among_many_alike_is_named():
     assert err.path == "obstacles[45].circle.radius"
 
 
+def test_the_examples_in_the_format_doc_load():
+    import re
+
+    doc = (REPO_CONFIG.parent / "docs" / "scene-format.md").read_text(encoding="utf-8")
+    yaml_block, json_block = (re.search(rf"```{kind}\n(.*?)```", doc, re.S).group(1)
+                              for kind in ("yaml", "json"))
+    scene = load_scene_bytes(yaml_block.encode(), "example.yaml", SETTINGS)
+    assert [o.id for o in scene.obstacles] == ["clamp-left", "o2", "o3"]
+    assert [t.id for t in scene.targets] == ["t1", "hole-9", "t3"]
+    assert load_scene_bytes(json_block.encode(), "example.json", SETTINGS).head.name == "torch-80"
+    # UTF-16 with a byte-order mark is YAML too (YAML 1.2.2 spec, section 5.2)
+    utf16 = load_scene_bytes(yaml_block.encode("utf-16"), "example.yaml", SETTINGS)
+    assert utf16.obstacles == scene.obstacles
+
+
 # YAML 1.2.2 spec, section 10.3.2 (core schema tag resolution): these plain scalars resolve so.
 @pytest.mark.parametrize(
     "text, value",
@@ -378,6 +393,14 @@ def test_allowed_aliases_are_expanded():
     assert scene.finish == (20.0, 20.0)
     err = bad(text)  # by default: refused where the alias is written
     assert err.line == 18 and "alias" in err.message
+
+
+def test_an_aliased_number_list_does_not_hide_one_in_a_string():
+    from planner.yamlload import _parse_yaml
+
+    text = "a: &x [1, 2]\nb: *x\nc: \"[3, 4]\"\n"
+    # PyYAML's SafeLoader as the reference
+    assert _parse_yaml(text, Limits(max_aliases=5)) == yaml.safe_load(text)
 
 
 def test_duplicate_key():

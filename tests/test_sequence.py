@@ -50,14 +50,17 @@ def respects(order, level, before) -> bool:
 def brute_force(cost: np.ndarray, has_finish: bool, level=None, before=()) -> float:
     """The exact optimum over every permutation of the targets (itertools), constraints kept."""
     n = cost.shape[0] - 1 - int(has_finish)
-    level = level or [1] * n
-    best = np.inf
-    for perm in itertools.permutations(range(n)):
-        if not respects(perm, level, before):
-            continue
-        nodes = [0, *(t + 1 for t in perm)] + ([n + 1] if has_finish else [])
-        best = min(best, float(cost[nodes[:-1], nodes[1:]].sum()))
-    return best
+    level = np.asarray(level or [1] * n)
+    perms = np.array(list(itertools.permutations(range(n))), dtype=int).reshape(-1, n)
+    ok = np.all(np.diff(level[perms], axis=1) >= 0, axis=1)
+    pos = np.argsort(perms, axis=1)  # pos[p, t]: where target t comes in permutation p
+    for a, b in before:
+        ok &= pos[:, a] < pos[:, b]
+    nodes = np.hstack([np.zeros((len(perms), 1), dtype=int), perms + 1])
+    if has_finish:
+        nodes = np.hstack([nodes, np.full((len(perms), 1), n + 1)])
+    totals = cost[nodes[:, :-1], nodes[:, 1:]].sum(axis=1)
+    return float(totals[ok].min())
 
 
 def lkh_order(cost: np.ndarray, has_finish: bool) -> list[int]:
@@ -69,8 +72,10 @@ def lkh_order(cost: np.ndarray, has_finish: bool) -> list[int]:
     full[: n + 1, : n + 1] = cost[: n + 1, : n + 1]
     if has_finish:
         full[: n + 1, n + 1] = cost[: n + 1, n + 1]
-    weights = np.rint(full * 1000).astype(np.int64)  # LKH works on integers: micrometres
-    big = int(weights.max()) * size + 1
+    # LKH works on integers, and its ATSP transformation overflows 32 bits on large ones: the
+    # longest edge becomes 10,000 and a forbidden edge costs more than any whole tour.
+    weights = np.rint(full * (1e4 / full.max())).astype(np.int64)
+    big = 10_000 * size + 1
     weights[size - 1, :] = big
     weights[:, 0] = big
     weights[size - 1, 0] = 0
@@ -134,12 +139,18 @@ def test_never_far_from_brute_force(seed: int, n: int, has_finish: bool, asymmet
     assert order_cost(cost, order, has_finish) <= 1.10 * brute_force(cost, has_finish) + 1e-9
 
 
+class _NoAliases(yaml.SafeDumper):
+    def ignore_aliases(self, data) -> bool:
+        return True
+
+
 def obstacle_matrix(n_targets: int, seed: int) -> np.ndarray:
     """Shortest collision-free path lengths between start, targets and finish of a seeded
     random scene with obstacles, from the road map (one search per point)."""
     config = load_settings(REPO_CONFIG)
     scene_dict = random_scene(3000, seed=seed, n_targets=n_targets)
-    scene = load_scene_bytes(yaml.safe_dump(scene_dict).encode(), "random.yaml", config)
+    text = yaml.dump(scene_dict, Dumper=_NoAliases)
+    scene = load_scene_bytes(text.encode(), "random.yaml", config)
     _, roadmap = free_space_and_roadmap(scene, config.in_units(scene.units))
     pts = np.array([scene.start, *(t.at for t in scene.targets), scene.finish])
     cost = np.array([roadmap.distances_from(tuple(p), pts) for p in pts])

@@ -281,8 +281,8 @@ def test_broken_config_retires_every_route_until_it_is_fixed(env: Daemon):
     assert not (env.out / "cfg.route.yaml").exists()
     assert "heads.yaml" in (env.out / "cfg.error.txt").read_text()
     heads.write_text(good)
-    wait_for(lambda: (env.out / "cfg.route.yaml").exists(), 10, "the route to come back")
-    assert not (env.out / "cfg.error.txt").exists()
+    wait_for(lambda: env.entry("cfg.yaml")["state"] == "planned", 10, "the route to come back")
+    assert (env.out / "cfg.route.yaml").exists() and not (env.out / "cfg.error.txt").exists()
     assert read_status(env.out)["config"]["state"] == "ok"
     assert env.stop() == 0
 
