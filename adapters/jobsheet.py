@@ -13,11 +13,12 @@ from typing import Any
 from planner.model import Route
 from planner.safety import CAUTIONS
 
-from .base import AdapterError
+from .base import config_file_name
+from .section import Section
 
-__all__ = ["JobSheetAdapter"]
+__all__ = ["JobSheetAdapter", "read_jobsheet_settings"]
 
-_KNOWN = {"picture"}
+KNOWN = ["picture"]
 
 _STYLE = """
 body { font-family: "DejaVu Sans", Verdana, Arial, sans-serif; color: #1a1a1a; margin: 24px;
@@ -60,6 +61,14 @@ def _time(seconds: Any) -> str:
     return f"{s:.1f} s"
 
 
+def read_jobsheet_settings(section: Any, file: str = "planner.yaml") -> bool:
+    """Check `adapter_settings.jobsheet` and return whether the sheet carries the picture."""
+    s = Section("jobsheet", section, file)
+    picture = s.flag("picture", True)
+    s.finish(KNOWN)
+    return picture
+
+
 class JobSheetAdapter:
     """`<stem>.html`: the picture, the legs, what cannot be reached and why, hashes, cautions."""
 
@@ -67,16 +76,11 @@ class JobSheetAdapter:
     suffix = ".html"
     summary = "self-contained HTML job sheet: picture, legs, unreachable targets, cautions"
 
+    def check(self, settings: Mapping[str, Any], job: Any = None) -> None:
+        read_jobsheet_settings(settings, config_file_name(job))
+
     def write(self, route: Route, settings: Mapping[str, Any], job: Any = None) -> str:
-        unknown = sorted(set(settings or {}) - _KNOWN)
-        if unknown:
-            raise AdapterError(
-                f"adapter_settings.jobsheet: unknown key {unknown[0]!r} "
-                f"(known: {', '.join(sorted(_KNOWN))})"
-            )
-        picture = (settings or {}).get("picture", True)
-        if not isinstance(picture, bool):
-            raise AdapterError("adapter_settings.jobsheet.picture must be true or false")
+        picture = read_jobsheet_settings(settings, config_file_name(job))
         units = route.units
         out = [
             "<!DOCTYPE html>",

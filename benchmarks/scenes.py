@@ -236,5 +236,5 @@ def random_scene(
         "obstacles": obstacles,
         "start": points[0],
         "targets": points[1:],
-        "finish": points[0],
+        "finish": list(points[0]),
     }

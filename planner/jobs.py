@@ -84,7 +84,10 @@ def run_job(
         return JobOutcome("failed", EXIT_FAILED, f"{scene_path.name}: {format_error(exc)}")
 
     route = result.route
-    state, code = ("planned", EXIT_OK) if route.status == "complete" else ("incomplete", EXIT_INCOMPLETE)
+    if route.status == "complete":
+        state, code = "planned", EXIT_OK
+    else:
+        state, code = "incomplete", EXIT_INCOMPLETE
     outcome = JobOutcome(state, code, result=result)
     if not write:
         return outcome

@@ -127,7 +127,8 @@ class Leg:
 class Unreachable:
     id: str
     reason: str
-    extra: dict = field(default_factory=dict, compare=False, hash=False)  # numbers behind the reason
+    # the numbers behind the reason (distances, gaps), for pictures and job sheets
+    extra: dict = field(default_factory=dict, compare=False, hash=False)
 
 
 @dataclass(frozen=True)

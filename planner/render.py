@@ -43,6 +43,7 @@ _TITLE_H = 96.0  # px above the drawing
 _BELOW_H = 92.0  # px below the drawing: axis labels, operator side, scale bar
 _LEGEND_W = 430.0  # px right of the drawing
 _CHAR_W = 0.60  # average glyph width as a fraction of the font size (DejaVu Sans, measured)
+_MAX_LABELS = 300  # obstacle ids drawn at most (the largest obstacles); more would be a smudge
 
 
 @dataclass(frozen=True)
@@ -430,26 +431,32 @@ def render_svg(
     placer = _Placer((fr.left, fr.top, fr.left + fr.width, fr.top + fr.height))
     points_svg, point_labels = _points_layer(fr, scene, number, bad_letter, placer)
     labels = []  # drawn last, above everything in the drawing
-    for o in scene.obstacles:
-        x0, y1, x1, y0 = *fr.px(*_obstacle_geometry(o).bounds[:2]), \
-            *fr.px(*_obstacle_geometry(o).bounds[2:])
-        placer.avoid((x0, y0, x1, y1))
-    for o in avoided:
+    shapes = [_obstacle_geometry(o) for o in scene.obstacles]
+    boxes = []
+    for g in shapes:
+        (x0, y0), (x1, y1) = fr.px(*g.bounds[:2]), fr.px(*g.bounds[2:])
+        boxes.append((x0, y1, x1, y0))  # page y runs down
+        placer.avoid(boxes[-1])
+    # the largest first: they take labels inside; beyond the budget, ids are left out
+    by_size = sorted(range(len(shapes)), key=lambda i: -(boxes[i][2] - boxes[i][0])
+                     * (boxes[i][3] - boxes[i][1]))
+    unlabelled = max(0, len(by_size) - _MAX_LABELS)
+    for i in by_size[:_MAX_LABELS]:
+        o = scene.obstacles[i]
         name = o.id + _obstacle_note(o)
-        labels.append(_label_obstacle(fr, _obstacle_geometry(o), [[name]], PALETTE["paper"],
-                                      placer))
-    for o in passed:
-        name = o.id + _obstacle_note(o)
-        high = f"{_num(o.height)} {units} high, passed over"
-        labels.append(_label_obstacle(fr, _obstacle_geometry(o),
-                                      [[name, high], [f"{name}: {high}"]], PALETTE["ink"],
-                                      placer, inside_halo=True))
+        if o.is_avoided(ride):
+            labels.append(_label_obstacle(fr, shapes[i], [[name]], PALETTE["paper"], placer))
+        else:
+            high = f"{_num(o.height)} {units} high, passed over"
+            labels.append(_label_obstacle(fr, shapes[i], [[name, high], [f"{name}: {high}"]],
+                                          PALETTE["ink"], placer, inside_halo=True))
     route_svg = _route_layer(fr, route, placer) if route is not None else ""
     labels.append(point_labels())
     hints, hint_labels, hint_kinds = _hints_layer(fr, scene, unreachable, bad_letter, placer)
     labels.append(hint_labels)
     legend, legend_h = _legend(scene, route, reasons, bad_letter, bool(passed), grown is not None,
-                               bool(_carried_outlines(scene, order)), hint_kinds, details)
+                               bool(_carried_outlines(scene, order)), hint_kinds, details,
+                               unlabelled)
     draw_h = fr.height + _BELOW_H
     width = _PAD + fr.width + 28 + _LEGEND_W + _PAD
     height = _PAD + _TITLE_H + max(draw_h, legend_h) + _PAD
@@ -469,7 +476,7 @@ def render_svg(
         "</defs>",
         f'<rect width="{_f(width)}" height="{_f(height)}" fill="{PALETTE["paper"]}"/>',
     ]
-    out.append(_title(scene, route))
+    out.append(_title(scene, route, details))
 
     # outside the travel limits, then the travel rectangle itself
     t = scene.travel
@@ -688,7 +695,7 @@ def _points_layer(fr: Frame, scene: Scene, number: dict[str, int], bad: dict[str
     return "".join(out), labels
 
 
-def _title(scene: Scene, route: Route | None) -> str:
+def _title(scene: Scene, route: Route | None, details: bool = True) -> str:
     y = _PAD + 18
     out = _text(_PAD, y, f"{scene.file}", size=20, weight="bold", halo=False)
     u = scene.units
@@ -697,7 +704,8 @@ def _title(scene: Scene, route: Route | None) -> str:
     elif route.unreachable:
         n = len(route.unreachable)
         status = (f"Route INCOMPLETE: {n} point{'s' if n > 1 else ''} cannot be reached "
-                  f"(diamonds, reasons on the right); {len(route.legs)} legs, "
+                  f"(diamonds, reasons {'on the right' if details else 'below'}); "
+                  f"{len(route.legs)} legs, "
                   f"{_num(route.length)} {u} of traverse.")
     else:
         status = (f"Route complete: every target reached in {len(route.legs)} legs, "
@@ -766,7 +774,8 @@ def _below(fr: Frame, scene: Scene) -> str:
 
 def _legend(scene: Scene, route: Route | None, reasons: Sequence[tuple[str, str]],
             letters: dict[str, str], any_passed: bool, any_grown: bool,
-            any_carry: bool, hint_kinds: set[str], details: bool = True) -> tuple[str, float]:
+            any_carry: bool, hint_kinds: set[str], details: bool = True,
+            unlabelled: int = 0) -> tuple[str, float]:
     """The key (symbols with words) and the unreachable targets with their reasons."""
     ink = PALETTE["ink"]
     u = scene.units
@@ -825,6 +834,8 @@ def _legend(scene: Scene, route: Route | None, reasons: Sequence[tuple[str, str]
           f'stroke="{ink}" stroke-width="2"/><rect x="4" y="-9" width="6" height="18" '
           f'fill="{PALETTE["outside"]}"/>',
           "travel limits of the tool point (grey: outside them)")
+    if unlabelled:
+        entry("", f"{unlabelled} of the smallest obstacles are drawn without their ids")
 
     y += 8
     out.append(f'<line x1="0" y1="{_f(y)}" x2="{_f(_LEGEND_W)}" y2="{_f(y)}" stroke="{ink}" '

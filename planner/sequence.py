@@ -32,6 +32,7 @@ __all__ = [
 _FIRST, _NORMAL, _LAST = 0, 1, 2
 _SEED = 20240611  # fixed: the same matrix always gets the same order
 _BATCH = 16  # marked nodes looked at together by the local search
+_NEIGHBOURS = 10  # candidate new edges per node: to its cheapest few others
 
 
 @dataclass(frozen=True)
@@ -249,6 +250,12 @@ class _TourSearch:
         self.deadline = deadline
         scale = float(np.mean(cost)) if cost.size else 1.0
         self.eps = 1e-9 * max(scale, 1e-12)
+        k = min(_NEIGHBOURS, self.size - 1)
+        both = cost + cost.T
+        np.fill_diagonal(both, np.inf)
+        near = np.argpartition(both, k - 1, axis=1)[:, :k] if k < self.size - 1 else \
+            np.argsort(both, axis=1)[:, :k]
+        self.nb = near  # each node's k cheapest other nodes (either way round)
 
     # -- feasibility and cost --------------------------------------------------------------
     def feasible(self, tour: np.ndarray) -> bool:
@@ -296,54 +303,67 @@ class _TourSearch:
         """Improving 2-opt and Or-opt moves as arrays (delta, kind, a, b, reversed).
 
         kind 0 is 2-opt (a, b: the removed edges, positions a+1..b reversed); kind L = 1..3 is
-        Or-opt (positions a..a+L-1 moved into edge b). With `dirty` (edge indices), only moves
-        that remove one of those edges are looked at.
+        Or-opt (positions a..a+L-1 moved into edge b). Only moves that create an edge to one of
+        a node's nearest neighbours are looked at; with `dirty` (edge indices), only those that
+        also remove one of these edges.
         """
-        c, p, size = self.c, tour, self.size
+        c, p, size, nb = self.c, tour, self.size, self.nb
         m = size - 1  # edges 0..m-1; edge k joins positions k and k+1
+        pos = np.empty(size, dtype=int)
+        pos[p] = np.arange(size)
         f = c[p[:-1], p[1:]]
         g = np.concatenate(([0.0], np.cumsum(c[p[1:], p[:-1]] - f)))  # reversed minus forward
-        edges = np.arange(m)
-        rows = edges if dirty is None else dirty
+        rows = np.arange(m) if dirty is None else dirty
         found = []
 
-        lo = np.minimum(rows[:, None], edges[None, :])
-        hi = np.maximum(rows[:, None], edges[None, :])
+        # 2-opt between edge r and edge j creates (p_r, p_j) and (p_r+1, p_j+1)
+        part = np.concatenate((pos[nb[p[rows]]], pos[nb[p[rows + 1]]] - 1), axis=1)
+        lo = np.minimum(rows[:, None], part)
+        hi = np.maximum(rows[:, None], part)
+        ok = (hi - lo >= 2) & (lo >= 0) & (hi <= m - 1)
+        lo, hi = np.where(ok, lo, 0), np.where(ok, hi, 2)
         d = c[p[lo], p[hi]] + c[p[lo + 1], p[hi + 1]] - f[lo] - f[hi] + g[hi] - g[lo + 1]
-        d[hi - lo < 2] = np.inf
-        found.append((d, 0, lo, hi, 0))
+        found.append((np.where(ok, d, np.inf), 0, lo, hi, 0))
 
+        # Or-opt: stretch s..e into edge q creates (p_q, p_s), (p_e, p_q+1), or reversed
         for length in (1, 2, 3):
-            starts = np.arange(1, size - length)
-            if starts.size == 0:
+            last = size - 1 - length  # the last possible stretch start
+            if last < 1:
                 continue
             if dirty is None:
-                blocks = [(starts, edges)]
+                s_a = np.arange(1, last + 1)
             else:
-                near = np.union1d(dirty + 1, dirty - length + 1)
-                near = near[(near >= 1) & (near <= size - 1 - length)]
-                blocks = [(near, edges), (starts, dirty)]
+                s_a = np.union1d(dirty + 1, dirty - length + 1)
+                s_a = s_a[(s_a >= 1) & (s_a <= last)]
+            e_a = s_a + length - 1
+            blocks = []
+            if s_a.size:
+                q_a = np.concatenate((pos[nb[p[s_a]]], pos[nb[p[s_a]]] - 1,
+                                      pos[nb[p[e_a]]], pos[nb[p[e_a]]] - 1), axis=1)
+                blocks.append((np.broadcast_to(s_a[:, None], q_a.shape), q_a))
+            if dirty is not None and dirty.size:
+                near_q, near_q1 = pos[nb[p[dirty]]], pos[nb[p[dirty + 1]]]
+                s_b = np.concatenate((near_q, near_q - length + 1, near_q1,
+                                      near_q1 - length + 1), axis=1)
+                blocks.append((s_b, np.broadcast_to(dirty[:, None], s_b.shape)))
             for s, q in blocks:
-                if s.size == 0 or q.size == 0:
-                    continue
+                ok = (s >= 1) & (s <= last) & (q >= 0) & (q <= m - 1)
+                ok &= (q < s - 1) | (q > s + length - 1)
+                s, q = np.where(ok, s, 1), np.where(ok, q, 0)
                 e = s + length - 1
-                removal = (f[s - 1] + f[e] - c[p[s - 1], p[e + 1]])[:, None]
-                bad = (q[None, :] >= s[:, None] - 1) & (q[None, :] <= e[:, None])
-                ss = np.broadcast_to(s[:, None], bad.shape)
-                qq = np.broadcast_to(q[None, :], bad.shape)
-                fwd = c[p[q][None, :], p[s][:, None]] + c[p[e][:, None], p[q + 1][None, :]]
-                fwd = fwd - f[q][None, :] - removal
-                fwd[bad] = np.inf
-                found.append((fwd, length, ss, qq, 0))
+                removal = f[s - 1] + f[e] - c[p[s - 1], p[e + 1]]
+                base = f[q] + removal
+                fwd = c[p[q], p[s]] + c[p[e], p[q + 1]] - base
+                found.append((np.where(ok, fwd, np.inf), length, s, q, 0))
                 if length > 1:
-                    rev = c[p[q][None, :], p[e][:, None]] + c[p[s][:, None], p[q + 1][None, :]]
-                    rev = rev - f[q][None, :] - removal + (g[e] - g[s])[:, None]
-                    rev[bad] = np.inf
-                    found.append((rev, length, ss, qq, 1))
+                    rev = c[p[q], p[e]] + c[p[s], p[q + 1]] - base + g[e] - g[s]
+                    found.append((np.where(ok, rev, np.inf), length, s, q, 1))
 
         if not self.constrained:
             best = None
             for delta, kind, a, b, rev in found:
+                if delta.size == 0:
+                    continue
                 k = np.unravel_index(np.argmin(delta), delta.shape)
                 if delta[k] < -self.eps and (best is None or delta[k] < best[0][0]):
                     best = (np.array([delta[k]]), np.array([kind]), np.array([a[k]]),

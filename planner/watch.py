@@ -53,6 +53,7 @@ _CONFIG = ("config",)  # settler key of the config folder (never a file name: na
 _WAKE = ("wake",)
 _TICK_S = 0.05  # how often a settling file's signature is taken, at most (common practice)
 _PAST = -1e12  # a "last changed" reading so old that any settle or parse wait has passed
+_STATUS_EVERY_S = 0.25  # in a burst, status.json is rewritten at most this often (and at its end)
 
 
 class _Changed(Exception):
@@ -184,6 +185,7 @@ class Watcher:
         self._suffixes = tuple(a.suffix for a in installed_adapters().values())
         self._next_rescan = 0.0
         self._plans = 0
+        self._dirty = False  # status.json is behind the board
 
     # ----------------------------------------------------------------- control
     def stop(self) -> None:
@@ -304,6 +306,8 @@ class Watcher:
                 self._handle(key, sig, changed_at)
                 self._drain(0.0)
             self.board.set_queued(len(self.settler))
+            if self._dirty:
+                self._flush()
 
     def _drain(self, timeout: float) -> None:
         """Take every queued event, waiting up to `timeout` for the first one."""
@@ -374,6 +378,14 @@ class Watcher:
         except Exception as exc:  # a bug of ours or a file system error: log it, go on
             LOG.error("%s: internal error while handling it (%s: %s); the daemon goes on",
                       "config" if key == _CONFIG else key, type(exc).__name__, _one_line(exc))
+        self._flush(force=False)
+
+    def _flush(self, force: bool = True) -> None:
+        """Write status.json; in a burst at most every _STATUS_EVERY_S (the last one always)."""
+        if not force and time.monotonic() - self.board.flushed_at < _STATUS_EVERY_S:
+            self._dirty = True
+            return
+        self._dirty = False
         try:
             self.board.flush()
         except OSError as exc:
@@ -463,10 +475,10 @@ class Watcher:
             moved = supersede(self.out, stale)
             LOG.info("%s: moved %d old output file(s) to %s/ (planned for other scene content or "
                      "config)", name, len(moved), SUPERSEDED_DIR)
+        # status.json shows this within a heartbeat: a long plan is seen, a short one not rewritten
         self.board.put(SceneRecord(name, "waiting", utc_stamp(), stem=stem, scene_sha256=sha,
                                    config_files_sha256=self.config_sha,
                                    message="being planned"))
-        self.board.flush()
         started = time.perf_counter()
         hits = self.cache.hits
         try:

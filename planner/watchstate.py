@@ -81,6 +81,7 @@ class StatusBoard:
         self.config: dict = {"state": "ok", "sha256": None, "message": None}
         self.scenes: dict[str, SceneRecord] = {}
         self.queued = 0
+        self.flushed_at = float("-inf")  # time.monotonic() of the last write
 
     def get(self, name: str) -> SceneRecord | None:
         with self._lock:
@@ -123,9 +124,10 @@ class StatusBoard:
 
     def flush(self) -> None:
         """Write status.json atomically (a reader sees the old or the new file, never a mix)."""
-        text = json.dumps(self.snapshot(), indent=1, sort_keys=False) + "\n"
         with self._write_lock:
+            text = json.dumps(self.snapshot(), indent=1, sort_keys=False) + "\n"
             atomic_write(self.path, text)
+            self.flushed_at = time.monotonic()
 
 
 def read_status(out_dir: Path) -> dict | None:

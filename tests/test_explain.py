@@ -268,3 +268,40 @@ def test_explanations_agree_with_the_planner_on_which_gap_matters():
     wider = make_scene(pocket_with_slot(64 + first["narrower_by"] + STEP), half=30, margin=2,
                        start=(100, 900), targets=[(500, 500)])
     assert reachable(wider, 2.0, wider.start, (500, 500))
+
+
+def test_blocked_pocket_demo_names_the_clamps_and_the_gap():
+    # By construction of the demo scene: the back clamp ends at x = 2270, the right clamp starts
+    # at x = 2340 (70 mm); the router's dust shoe is an octagon 100 mm across, margin 5: it
+    # needs 110 mm. drill-2 sits on hold-down-1 (x 600..700): the nearest free point to its
+    # right is 700 + 50 + 5 (+ pad), 105 mm away.
+    from pathlib import Path
+
+    from planner.config import load_settings
+    from planner.plan import plan_scene
+    from planner.scene import load_scene
+
+    repo = Path(__file__).resolve().parent.parent
+    settings = load_settings(repo / "config")
+    scene = load_scene(repo / "planner" / "demo" / "router-blocked-pocket.yaml", settings)
+    found = {u.id: u for u in plan_scene(scene, settings).route.unreachable}
+    pocket = found["pocket-centre"].extra
+    first = pocket["pairs"][0]
+    assert set(first["between"]) == {"pocket-clamp-back", "pocket-clamp-right"}
+    assert first["gap"] == pytest.approx(70.0) and first["need"] == pytest.approx(110.0)
+    assert first["margin_to_open"] is None and pocket["single_gap_opens"] is True
+    drill = found["drill-2"].extra
+    assert [b["id"] for b in drill["blocking"]] == ["hold-down-1"]
+    assert 105.0 + PAD <= drill["move"] <= 105.0 + PAD + STEP
+
+
+def test_inch_scene_speaks_inches():
+    scene = replace(make_scene(pocket_with_slot(50), half=30, margin=2, start=(100, 900),
+                               targets=[(500, 500)]), units="inch")
+    settings = SETTINGS.in_units("inch")
+    free = build_free_space(scene, settings)
+    with pytest.raises(NoPath) as info:
+        build_roadmap(free).path(scene.start, (500.0, 500.0))
+    u = Explainer(scene, settings).unreachable(info.value, "start", "t1", free)
+    assert "top-left and top-right are 50 in apart, the head needs 64 in there" in u.reason
+    assert " mm" not in u.reason

@@ -108,10 +108,11 @@ def test_time_column_appears_once_legs_have_times():
 
 def test_bad_settings_are_one_clear_error():
     route = Route("x.yaml", "0" * 64, "1" * 64, "mm", (), (Unreachable("t1", "why"),))
-    with pytest.raises(AdapterError, match="unknown key 'pictures'"):
+    with pytest.raises(AdapterError, match="unknown setting 'pictures'") as info:
         JobSheetAdapter().write(route, {"pictures": True})
+    assert info.value.path == "adapter_settings.jobsheet.pictures"
     with pytest.raises(AdapterError, match="true or false"):
-        JobSheetAdapter().write(route, {"picture": "yes"})
+        JobSheetAdapter().check({"picture": "yes"})
     page = JobSheetAdapter().write(route, {"picture": False}, SimpleNamespace(scene=None))
     assert "<svg" not in page and "why" in page
 

@@ -255,3 +255,15 @@ def test_show_refuses_other_names_and_bad_scenes_and_writes_nothing(scene_copy: 
     assert "Traceback" not in run.stderr and "broken.yaml" in run.stderr
     after = sorted(p.name for p in tmp_path.iterdir())
     assert after == sorted(before + ["broken.yaml"])
+
+
+def test_crowded_scene_leaves_small_ids_out_and_says_so():
+    scene, _, _ = scene_and_route()
+    many = tuple(Obstacle(id=f"chip-{i}", polygon=((x, 500), (x + 1, 500), (x + 1, 501)))
+                 for i, x in enumerate(np.linspace(5, 995, 400)))
+    scene = Scene(**{**scene.__dict__, "obstacles": scene.obstacles + many})
+    root = ET.fromstring(render_svg(scene))
+    text = " ".join(t.text or "" for t in root.iter(f"{SVG_NS}text"))
+    assert "clamp" in text and "post" in text  # the big ones keep their ids
+    assert "of the smallest obstacles are drawn without their ids" in text
+    assert len(root.findall(f".//{SVG_NS}path[@id]")) >= 400  # every obstacle is still drawn
