@@ -33,6 +33,7 @@ import shapely.ops
 from .config import Settings
 from .cspace import FreeSpace, build_free_space, c_obstacle_pieces
 from .model import FINISH, START, Obstacle, Point, Ring, Scene, Unreachable
+from .roadmap import NoPath
 
 __all__ = ["Explainer", "explain_unreachable", "head_clearances", "Contact"]
 
@@ -133,7 +134,7 @@ class Explainer:
     # -- public ---------------------------------------------------------------------------------
     def unreachable(
         self,
-        exc,
+        exc: NoPath,
         from_id: str,
         to_id: str,
         free: FreeSpace,
@@ -672,7 +673,7 @@ def _coord(v: float) -> str:
     return text
 
 
-def explain_unreachable(exc, from_id: str, to_id: str, free: FreeSpace, scene: Scene,
+def explain_unreachable(exc: NoPath, from_id: str, to_id: str, free: FreeSpace, scene: Scene,
                         settings: Settings, **kwargs) -> Unreachable:
     """One-off explanation (see Explainer.unreachable); for many, keep one Explainer per scene."""
     return Explainer(scene, settings).unreachable(exc, from_id, to_id, free, **kwargs)

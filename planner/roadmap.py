@@ -10,6 +10,7 @@ must miss `blocked` shrunk inward by `eps` (touching and sliding along obstacle 
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -22,7 +23,12 @@ from .cspace import FreeSpace
 from .errors import PlanningError
 from .model import Point
 
-__all__ = ["NoPath", "Roadmap", "build_roadmap"]
+__all__ = ["EdgeCost", "NoPath", "Roadmap", "build_roadmap"]
+
+# The cost of straight moves for a search: (k, 2) moves (dx, dy) -> (k,) costs > 0 for k nonzero
+# moves. None means Euclidean length. A cost must satisfy the triangle inequality (a straight
+# move never costs more than two moves via a corner): the search keeps free straight lines.
+EdgeCost = Callable[[np.ndarray], np.ndarray]
 
 # Relative size of floating-point noise in a cross product of two unit vectors: a turn smaller
 # than this is a straight line (dimensionless, not a length tolerance).
@@ -128,6 +134,7 @@ class Roadmap:
     _pinch: np.ndarray  # triangulation vertex -> is a pinch point
     _tree: shapely.STRtree | None = None
     _sight_cache: dict = field(default_factory=dict)
+    _cost_graphs: dict = field(default_factory=dict)  # EdgeCost -> graph weighted by it
 
     # -- visibility ---------------------------------------------------------------------------
 
@@ -256,11 +263,26 @@ class Roadmap:
         if kind == "blocked":
             raise NoPath(blocked_kind, a, b)
 
-    def _search(self, a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def _cost(self, moves: np.ndarray, lengths: np.ndarray, cost: EdgeCost | None) -> np.ndarray:
+        return lengths if cost is None or len(moves) == 0 else np.asarray(cost(moves), float)
+
+    def _graph_for(self, cost: EdgeCost | None) -> csr_matrix:
+        """The graph with every edge weighted by `cost` (cached per cost)."""
+        if cost is None:
+            return self.graph
+        if cost not in self._cost_graphs:
+            g = self.graph.tocoo()
+            w = self._cost(self.nodes[g.col] - self.nodes[g.row], g.data, cost)
+            self._cost_graphs[cost] = csr_matrix((w, (g.row, g.col)), shape=g.shape)
+        return self._cost_graphs[cost]
+
+    def _search(self, a: np.ndarray, cost: EdgeCost | None = None
+                ) -> tuple[np.ndarray, np.ndarray]:
         """Dijkstra from free point a over the graph plus a's own edges: distances and
         predecessors for every node (index N stands for a)."""
         (a_nodes, a_dist), = self._sight(a.reshape(1, 2))
-        g = self.graph
+        a_dist = self._cost(self.nodes[a_nodes] - a, a_dist, cost)
+        g = self._graph_for(cost)
         n = g.shape[0]
         indptr = np.append(g.indptr, g.indptr[-1] + len(a_nodes))
         aug = csr_matrix(
@@ -270,9 +292,9 @@ class Roadmap:
         dist, pred = dijkstra(aug, directed=True, indices=n, return_predecessors=True)
         return dist, pred
 
-    def _finish(self, a: np.ndarray, targets: np.ndarray, dist: np.ndarray
-                ) -> tuple[np.ndarray, np.ndarray]:
-        """Best length to each target and the node it arrives from (-1: straight from a)."""
+    def _finish(self, a: np.ndarray, targets: np.ndarray, dist: np.ndarray,
+                cost: EdgeCost | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Best cost to each target and the node it arrives from (-1: straight from a)."""
         m = len(targets)
         best = np.full(m, np.inf)
         via = np.full(m, -1, dtype=np.int64)
@@ -282,12 +304,12 @@ class Roadmap:
             return best, via
         pts = targets[usable]
         direct = self.visible(np.repeat(a.reshape(1, 2), len(usable), axis=0), pts)
-        best[usable[direct]] = np.hypot(*(pts[direct] - a).T)
+        best[usable[direct]] = self._cost(pts[direct] - a, np.hypot(*(pts[direct] - a).T), cost)
         sights = self._sight(pts[~direct])
         for i, (nodes, d) in zip(usable[~direct], sights, strict=True):
             if len(nodes) == 0:
                 continue
-            total = dist[nodes] + d
+            total = dist[nodes] + self._cost(targets[i] - self.nodes[nodes], d, cost)
             j = int(np.argmin(total))
             if np.isfinite(total[j]):
                 best[i] = total[j]
@@ -307,9 +329,10 @@ class Roadmap:
         length = float(np.hypot(*np.diff(pts, axis=0).T).sum())
         return pts, length
 
-    def path(self, a: Point, b: Point) -> tuple[np.ndarray, float]:
-        """The shortest collision-free polyline from a to b ((k, 2) points, a first, b last)
-        and its length; raises NoPath when there is none."""
+    def path(self, a: Point, b: Point, cost: EdgeCost | None = None
+             ) -> tuple[np.ndarray, float]:
+        """The shortest (or cheapest by `cost`) collision-free polyline from a to b ((k, 2)
+        points, a first, b last) and its length; raises NoPath when there is none."""
         pa = np.asarray(a, dtype=float).reshape(2)
         pb = np.asarray(b, dtype=float).reshape(2)
         self._check(pa, "start-blocked", a, b)
@@ -319,32 +342,36 @@ class Roadmap:
         if self.visible(pa, pb)[0]:
             return np.vstack([pa, pb]), float(np.hypot(*(pb - pa)))
         self._sight(np.vstack([pa, pb]))  # one walk for both ends
-        dist, pred = self._search(pa)
-        best, via = self._finish(pa, pb.reshape(1, 2), dist)
+        dist, pred = self._search(pa, cost)
+        best, via = self._finish(pa, pb.reshape(1, 2), dist, cost)
         if not np.isfinite(best[0]):
             raise NoPath("disconnected", a, b)
         return self._polyline(pa, pb, int(via[0]), pred)
 
-    def distances_from(self, a: Point, targets: np.ndarray) -> np.ndarray:
-        """Shortest path lengths from a to every target (inf where unreachable), one search.
+    def distances_from(self, a: Point, targets: np.ndarray, cost: EdgeCost | None = None
+                       ) -> np.ndarray:
+        """Shortest path lengths (or least costs by `cost`) from a to every target (inf where
+        unreachable), one search.
 
         Raises NoPath when a itself is outside the travel limits or inside an obstacle."""
         pa = np.asarray(a, dtype=float).reshape(2)
         self._check(pa, "start-blocked", a, None)
         targets = np.asarray(targets, dtype=float).reshape(-1, 2)
         self._sight(np.vstack([pa, targets[self._classify(targets) == ""]]))
-        dist, _ = self._search(pa)
-        best, _ = self._finish(pa, targets, dist)
+        dist, _ = self._search(pa, cost)
+        best, _ = self._finish(pa, targets, dist, cost)
         return best
 
-    def paths_from(self, a: Point, targets: np.ndarray) -> list[tuple[np.ndarray, float] | None]:
-        """Shortest paths from a to every target (None where unreachable), one search."""
+    def paths_from(self, a: Point, targets: np.ndarray, cost: EdgeCost | None = None
+                   ) -> list[tuple[np.ndarray, float] | None]:
+        """Shortest (or cheapest by `cost`) paths from a to every target (None where
+        unreachable), one search."""
         pa = np.asarray(a, dtype=float).reshape(2)
         self._check(pa, "start-blocked", a, None)
         targets = np.asarray(targets, dtype=float).reshape(-1, 2)
         self._sight(np.vstack([pa, targets[self._classify(targets) == ""]]))
-        dist, pred = self._search(pa)
-        best, via = self._finish(pa, targets, dist)
+        dist, pred = self._search(pa, cost)
+        best, via = self._finish(pa, targets, dist, cost)
         out: list[tuple[np.ndarray, float] | None] = []
         for i, tgt in enumerate(targets):
             if not np.isfinite(best[i]):

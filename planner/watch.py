@@ -87,6 +87,15 @@ def config_files_sha256(config_dir: Path | None) -> str | None:
     return digest.hexdigest()
 
 
+def _identity(folder: Path | None) -> tuple | None:
+    """(device, inode) of a folder: tells a folder replaced or remounted under the same name."""
+    try:
+        st = os.stat(folder) if folder is not None else None
+    except OSError:
+        return None
+    return None if st is None else (st.st_dev, st.st_ino)
+
+
 def _config_signature(config_dir: Path | None) -> Signature:
     if config_dir is None:
         return MISSING
@@ -186,6 +195,9 @@ class Watcher:
         self._next_rescan = 0.0
         self._plans = 0
         self._dirty = False  # status.json is behind the board
+        self._observer = None
+        self._handler: _Events | None = None
+        self._folders: tuple = (None, None)
 
     # ----------------------------------------------------------------- control
     def stop(self) -> None:
@@ -203,11 +215,15 @@ class Watcher:
         previous = read_status(self.out) or {}
         self._previous = previous.get("scenes", {}) if isinstance(previous, dict) else {}
         observer = _make_observer(self.options)
-        handler = _Events(self.events)
-        observer.schedule(handler, str(self.drop), recursive=False)
-        if self.config_dir is not None and self.config_dir.is_dir():
-            observer.schedule(handler, str(self.config_dir), recursive=False)
-        observer.start()  # before the first listing: nothing can slip between the two
+        self._observer, self._handler = observer, _Events(self.events)
+        try:
+            self._schedule()
+            observer.start()  # before the first listing: nothing can slip between the two
+        except OSError as exc:
+            LOG.error("cannot watch %s with the %s observer (%s); set watch.observer: polling in "
+                      "planner.yaml, or raise the system's limit on watches", self.drop,
+                      self.options.observer, exc.strerror or exc)
+            return EXIT_USAGE
         beat = threading.Thread(target=self._heartbeat, name="heartbeat", daemon=True)
         try:
             names = self._catch_up()
@@ -234,6 +250,14 @@ class Watcher:
         return EXIT_CLEAN
 
     # -------------------------------------------------------------- catch-up
+    def _schedule(self) -> None:
+        """Watch DROP and the config folder (again, after either was replaced, e.g. remounted)."""
+        self._observer.unschedule_all()
+        self._observer.schedule(self._handler, str(self.drop), recursive=False)
+        if self.config_dir is not None and self.config_dir.is_dir():
+            self._observer.schedule(self._handler, str(self.config_dir), recursive=False)
+        self._folders = (_identity(self.drop), _identity(self.config_dir))
+
     def _list_drop(self) -> list[str] | None:
         try:
             return sorted(n for n in os.listdir(self.drop)
@@ -347,6 +371,13 @@ class Watcher:
         names = self._list_drop()
         if names is None:
             return
+        if (_identity(self.drop), _identity(self.config_dir)) != self._folders:
+            LOG.warning("the drop or config folder was replaced (remounted?); watching it again")
+            try:
+                self._schedule()
+            except OSError as exc:
+                LOG.error("cannot watch %s again (%s); relying on the rescan every %g s",
+                          self.drop, exc.strerror or exc, self.options.rescan_s)
         now = time.monotonic()
         for name in names:
             sig = file_signature(self.drop / name)
@@ -400,7 +431,10 @@ class Watcher:
                 LOG.warning("%s: not a plain file (a symbolic link or a folder); not followed, "
                             "not planned", name)
             self._scene_gone(name, why)
-            self._seen[name] = sig
+            if sig == MISSING:
+                self._seen.pop(name, None)  # names come and go for weeks: forget this one
+            else:
+                self._seen[name] = sig  # warn about a link once, not at every rescan
             return
         stem = self._stem(name)
         owner = self._owner.get(stem)

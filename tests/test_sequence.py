@@ -80,7 +80,7 @@ def lkh_order(cost: np.ndarray, has_finish: bool) -> list[int]:
     weights[:, 0] = big
     weights[size - 1, 0] = 0
     np.fill_diagonal(weights, 0)
-    tour = elkai.DistanceMatrix(weights.tolist()).solve_tsp(runs=3)[:-1]
+    tour = elkai.DistanceMatrix(weights.tolist()).solve_tsp(runs=1)[:-1]
     k = tour.index(0)
     tour = tour[k:] + tour[:k]
     assert tour[-1] == size - 1
