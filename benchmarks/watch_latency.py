@@ -2,7 +2,7 @@
 
 Runs a real `sidestep watch` subprocess on temporary folders with the repository's config (the
 `watch:` settle time set from `--settle`, reported separately because it is a chosen delay, not
-work). Prints a summary and writes benchmarks/results/watch_latency.json.
+work). Prints a summary and writes benchmarks/results/watch_latency-<observer>.json.
 
     .venv/bin/python -m benchmarks.watch_latency                  # 50 drops, burst of 200
     .venv/bin/python -m benchmarks.watch_latency --settle 2.0 --observer polling
@@ -248,7 +248,8 @@ def main() -> int:
     args = parser.parse_args()
     result = measure(args.drops, args.burst, args.settle, args.observer, args.vertices)
     RESULTS.mkdir(parents=True, exist_ok=True)
-    (RESULTS / "watch_latency.json").write_text(json.dumps(result, indent=2) + "\n")
+    (RESULTS / f"watch_latency-{args.observer}.json").write_text(
+        json.dumps(result, indent=2) + "\n")
     lat, alone = result["latency_s"], result["plan_and_write_alone_s"]
     print(f"observer {result['observer']}, settle {result['settle_s']} s, scenes of "
           f"{result['scene_vertices']['min']}-{result['scene_vertices']['max']} vertices")

@@ -44,15 +44,38 @@ def cmd_check(args: argparse.Namespace) -> int:
         print(outcome.message, file=sys.stderr)
         return outcome.exit_code
     route = outcome.result.route
+    total = route.extra.get("time")
+    timing = "" if total is None else f", estimated time {total:.3f} s"
     print(f"{scene_path.name}: valid; {route.status}: {len(route.legs)} legs, "
-          f"length {route.length:.3f} {route.units} (nothing written)")
+          f"length {route.length:.3f} {route.units}{timing} (nothing written)")
     for i, leg in enumerate(route.legs, 1):
-        print(f"  leg {i}: {leg.from_id} -> {leg.to_id}  {leg.length:.3f} {route.units}")
+        t = leg.extra.get("time")
+        est = "" if t is None else f"  {t:.3f} s"
+        print(f"  leg {i}: {leg.from_id} -> {leg.to_id}  {leg.length:.3f} {route.units}{est}")
+    _print_order_saving(outcome.result, route.units)
     for item in route.unreachable:
         print(f"  unreachable {item.id}: {item.reason}")
     print("Before running this route on the machine:")
     print(caution_text())
     return outcome.exit_code
+
+
+def _print_order_saving(result, units: str) -> None:
+    """For `sequence: shortest`: the tour's cost against the file order, by the road map."""
+    from .motion import effective_axes
+
+    report = result.order
+    if report is not None:
+        unit = "s" if report.cost == "time" else units
+        given, planned = report.given_cost, report.planned_cost
+        share = f", {100 * report.saving / given:.1f}%" if given > 0 else ""
+        print(f"  sequence shortest by {report.cost}: {planned:.3f} {unit} against {given:.3f} "
+              f"{unit} in the given order (saves {report.saving:.3f} {unit}{share})")
+    model = effective_axes(result.settings, result.scene)
+    if model is not None and not model.linear:
+        print("  note: axes.linear is false: times assume each axis runs on its own, but the "
+              "route is checked safe only along its straight segments; the machine must run "
+              "these moves as coordinated straight lines (docs/motion.md)")
 
 
 def cmd_show(args: argparse.Namespace) -> int:

@@ -16,6 +16,7 @@ from typing import Any
 
 from .errors import ConfigError
 from .model import Head
+from .motion import AxisModel, AxisSpecError, axis_model_from_mapping, check_axes_override
 
 __all__ = [
     "Limits",
@@ -66,6 +67,9 @@ class Settings:
     heads: dict[str, Head] = field(default_factory=dict, compare=False, hash=False)
     config_dir: Path | None = None
     raw: dict = field(default_factory=dict, compare=False, hash=False)  # planner.yaml as read
+    axes: AxisModel | None = None  # planner.yaml's axis model (None: no time estimates)
+    # head name -> (checked partial `axes` override from heads.yaml, heads.yaml's units)
+    head_axes: dict = field(default_factory=dict, compare=False, hash=False)
 
     def in_units(self, units: str) -> Settings:
         """The same settings with every length expressed in `units` (heads included)."""
@@ -88,6 +92,7 @@ class Settings:
             arc_tolerance=self.arc_tolerance * f,
             resolution=self.resolution * f,
             heads=heads,
+            axes=None if self.axes is None else self.axes.in_units(units),
         )
 
 
@@ -131,8 +136,8 @@ def load_settings(config_dir: Path | None = None) -> Settings:
     if planner_path.exists():
         settings = _read(planner_path, "planner", lambda data: _planner(data, folder))
     if heads_path.exists():
-        heads = _read(heads_path, "heads", lambda data: _heads(data, settings))
-        settings = replace(settings, heads=heads)
+        heads, head_axes = _read(heads_path, "heads", lambda data: _heads(data, settings))
+        settings = replace(settings, heads=heads, head_axes=head_axes)
     return settings
 
 
@@ -191,11 +196,25 @@ def _planner(data: dict, folder: Path) -> Settings:
         limits=limits,
         config_dir=folder,
         raw=data,
+        axes=_axes(data),
     )
 
 
-def _heads(data: dict, settings: Settings) -> dict[str, Head]:
-    """Named heads in planner.yaml's units; a head without margin takes planner.yaml's."""
+def _axes(data: dict) -> AxisModel | None:
+    """planner.yaml's `axes` section (both axes complete) as an AxisModel, or None if absent."""
+    from .yamlload import Problem
+
+    if "axes" not in data:
+        return None
+    try:
+        return axis_model_from_mapping(data["axes"], data.get("units", "mm"))
+    except AxisSpecError as exc:
+        raise Problem(tuple(exc.path.split(".")), exc.message, exc.hint) from None
+
+
+def _heads(data: dict, settings: Settings) -> tuple[dict[str, Head], dict]:
+    """Named heads in planner.yaml's units (a head without margin takes planner.yaml's), and
+    each head's `axes` override with heads.yaml's units."""
     from .scene import check_rings, ring_array
 
     units = data.get("units", "mm")
@@ -218,7 +237,18 @@ def _heads(data: dict, settings: Settings) -> dict[str, Head]:
             margin=settings.margin if margin is None else conv(margin),
             ride_height=None if ride is None else conv(ride),
         )
-    return heads
+    head_axes = {}
+    for name, entry in data.get("heads", {}).items():
+        if "axes" in entry:
+            try:
+                override = check_axes_override(entry["axes"], "axes")
+            except AxisSpecError as exc:
+                from .yamlload import Problem
+
+                raise Problem(("heads", name, *exc.path.split(".")), exc.message,
+                              exc.hint) from None
+            head_axes[name] = (override, units)
+    return heads, head_axes
 
 
 def effective_config_sha256(settings: Settings, head: Head) -> str:
@@ -243,6 +273,11 @@ def effective_config_sha256(settings: Settings, head: Head) -> str:
             "ride_height": head.ride_height,
         },
     }
+    if settings.axes is not None:  # time estimates depend on the axis model
+        canonical["axes"] = settings.axes.as_dict()
+    if head.name in settings.head_axes:
+        override, units = settings.head_axes[head.name]
+        canonical["head"]["axes"] = {"override": override, "units": units}
     text = json.dumps(canonical, sort_keys=True, separators=(",", ":"), allow_nan=False,
                       default=str)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()

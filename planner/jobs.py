@@ -40,6 +40,12 @@ class JobOutcome:
     result: PlanResult | None = None
 
 
+def _named(scene_path: Path, message: str) -> str:
+    """The message with the scene's file name in front, once."""
+    name = scene_path.name
+    return message if message.startswith(f"{name}:") else f"{name}: {message}"
+
+
 def _planner_yaml(settings: Settings) -> Path:
     folder = settings.config_dir if settings.config_dir is not None else Path("config")
     return folder / "planner.yaml"
@@ -81,7 +87,7 @@ def run_job(
     except (SceneError, ConfigError) as exc:
         return JobOutcome("invalid", EXIT_INVALID, format_error(exc))
     except PlanningError as exc:
-        return JobOutcome("failed", EXIT_FAILED, f"{scene_path.name}: {format_error(exc)}")
+        return JobOutcome("failed", EXIT_FAILED, _named(scene_path, format_error(exc)))
 
     route = result.route
     if route.status == "complete":
@@ -100,7 +106,7 @@ def run_job(
             own = settings.adapter_settings.get(adapter.name, {})
             texts[output_path(out_dir, stem, adapter.suffix)] = adapter.write(route, own, result)
     except AdapterError as exc:
-        return JobOutcome("failed", EXIT_FAILED, f"{scene_path.name}: adapter: {exc}")
+        return JobOutcome("failed", EXIT_FAILED, _named(scene_path, f"adapter: {exc}"))
 
     companions = {
         path.name: hashlib.sha256(text.encode("utf-8")).hexdigest() for path, text in texts.items()

@@ -13,8 +13,13 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from .config import Settings
+    from .model import Scene
 
 __all__ = [
     "Axis",
@@ -29,6 +34,9 @@ __all__ = [
     "segment_limits",
     "segment_times",
     "path_time",
+    "TimeCost",
+    "effective_axes",
+    "effective_cost",
 ]
 
 AXIS_NAMES = ("x", "y")
@@ -173,7 +181,7 @@ def profile_time(distance, speed, acceleration) -> np.ndarray:
     d = np.abs(np.asarray(distance, dtype=float))
     v = np.asarray(speed, dtype=float)
     a = np.asarray(acceleration, dtype=float)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         ramp = v * v / a
         t = np.where(d >= ramp, d / v + v / a, 2.0 * np.sqrt(d / a))
     return np.where(d > 0, t, 0.0)
@@ -187,7 +195,7 @@ def segment_limits(deltas: np.ndarray, model: AxisModel) -> tuple[np.ndarray, np
     """
     d = np.abs(np.asarray(deltas, dtype=float).reshape(-1, 2))
     length = np.hypot(d[:, 0], d[:, 1])
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         ux = np.where(length > 0, d[:, 0] / length, 0.0)
         uy = np.where(length > 0, d[:, 1] / length, 0.0)
         v = np.minimum(
@@ -218,3 +226,43 @@ def path_time(points: np.ndarray, model: AxisModel) -> float:
     if len(p) < 2:
         return 0.0
     return float(np.sum(segment_times(np.diff(p, axis=0), model)))
+
+
+@dataclass(frozen=True)
+class TimeCost:
+    """Rest-to-rest traverse time as the cost of straight moves (for road-map searches).
+
+    Hashable, so a road map can keep its graph weighted by one model between searches.
+    """
+
+    model: AxisModel
+
+    def __call__(self, moves: np.ndarray) -> np.ndarray:
+        return segment_times(moves, self.model)
+
+
+def effective_axes(settings: Settings, scene: Scene) -> AxisModel | None:
+    """The axis model of one job, in the scene's units: planner.yaml's `axes`, then the named
+    head's `axes` from heads.yaml, then the scene's own `axes`, each over the one before.
+
+    None when no complete model results (then no times are estimated). Raises AxisSpecError
+    when the scene gives a partial model and the config none.
+    """
+    base = settings.axes.in_units(scene.units) if settings.axes is not None else None
+    layers = []
+    head_name = scene.head.name
+    if head_name is not None and head_name in settings.head_axes:
+        layers.append(settings.head_axes[head_name])
+    if "axes" in scene.options:
+        layers.append((scene.options["axes"], scene.units))
+    for override, units in layers:
+        if base is None:
+            base = axis_model_from_mapping(override, units).in_units(scene.units)
+        else:
+            base = merge_axes(base, override, units)
+    return base
+
+
+def effective_cost(settings: Settings, scene: Scene) -> str:
+    """`length` or `time`: the scene's `cost`, else the config's."""
+    return scene.options.get("cost", settings.cost)

@@ -7,16 +7,22 @@ obstacles, head, margin and travel did not change only runs the leg queries agai
 from __future__ import annotations
 
 from collections import OrderedDict
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from .config import Settings, effective_config_sha256
 from .cspace import FreeSpace, build_free_space, free_space_key
+from .errors import SceneError
 from .explain import Explainer
+from .incremental import StateSpaces
 from .model import FINISH, START, Leg, Point, Route, Scene, Travel, Unreachable
-from .roadmap import NoPath, Roadmap, build_roadmap
+from .motion import AxisModel, AxisSpecError, TimeCost, effective_axes, effective_cost, path_time
+from .roadmap import EdgeCost, NoPath, Roadmap, build_roadmap
 from .routefile import round_to_resolution
+from .sequence import OrderReport, scene_order
+from .stateorder import order_with_states
+from .states import State, StateTracker, has_states, leg_extra
 from .verify import verify_or_raise
 
 __all__ = ["PlanCache", "PlanResult", "plan_scene", "verify_tolerance"]
@@ -29,8 +35,11 @@ class PlanResult:
     route: Route
     scene: Scene
     settings: Settings  # in the scene's units
-    free: FreeSpace
+    free: FreeSpace  # of the first leg's state when the scene changes as the job runs
     roadmap: Roadmap
+    leg_states: tuple[State, ...] = ()  # per leg, when the scene changes as the job runs
+    spaces: StateSpaces | None = None  # spaces.get(leg_states[i]): the space leg i was planned in
+    order: OrderReport | None = None  # `sequence: shortest` in a scene without state changes
 
 
 class PlanCache:
@@ -87,23 +96,53 @@ def plan_scene(
     Raises UnsafeRouteError (a planner bug) when the rounded route fails the safety check.
     """
     settings = settings.in_units(scene.units)
-    free, roadmap = free_space_and_roadmap(scene, settings, cache)
+    model, edge_cost, cost_name = _time_model(scene, settings)
+    # a scene whose obstacles or footprint change as the job runs plans each leg in its own
+    # state (the state after the leg's first point); only reached targets change the state
+    tracker = StateTracker(scene) if has_states(scene) else None
+    spaces = StateSpaces(scene, settings) if tracker is not None else None
+    if spaces is not None:
+        first = spaces.get(tracker.state)
+        free, roadmap = first.free, first.roadmap
+    else:
+        free, roadmap = free_space_and_roadmap(scene, settings, cache)
     legs: list[Leg] = []
     unreachable: list[Unreachable] = []
+    leg_states: list[State] = []
 
     order = list(scene.targets)
+    report = None
+    if spaces is not None and scene.sequence == "shortest":
+        order = [scene.targets[k] for k in order_with_states(scene, spaces)]
+    elif scene.sequence == "shortest":  # leg costs by the road map, one search per point
+        report = scene_order(scene, roadmap, cost=edge_cost, cost_name=cost_name,
+                             time_budget_s=settings.limits.time_budget_s / 4)
+        order = [scene.targets[k] for k in report.order]
     current_id, current = START, scene.start
     stops: list[tuple[str, Point]] = [(t.id, t.at) for t in order]
     if scene.finish is not None:
         stops.append((FINISH, scene.finish))
     explainer = Explainer(scene, settings)
     for stop_id, point in stops:
+        leg_free, leg_roadmap, built_from = free, roadmap, {}
+        if spaces is not None:
+            space = spaces.get(tracker.state)
+            leg_free, leg_roadmap = space.free, space.roadmap
+            built_from = {"footprint": space.footprint, "obstacles": space.obstacles}
         try:
-            pts, _ = roadmap.path(current, point)
+            pts, _ = leg_roadmap.path(current, point, edge_cost)
         except NoPath as exc:
-            unreachable.append(explainer.unreachable(exc, current_id, stop_id, free))
+            unreachable.append(
+                explainer.unreachable(exc, current_id, stop_id, leg_free, **built_from))
             continue
-        legs.append(_rounded_leg(current_id, stop_id, pts, settings, scene.travel))
+        leg = _rounded_leg(current_id, stop_id, pts, settings, scene.travel)
+        if tracker is not None:
+            state = tracker.state
+            leg = replace(leg, extra={**leg.extra, **leg_extra(
+                leg_states[-1] if leg_states else None, state)})
+            leg_states.append(state)
+            tracker.reach(stop_id)
+        legs.append(leg)
         current_id, current = stop_id, point
 
     route = Route(
@@ -114,10 +153,46 @@ def plan_scene(
         legs=tuple(legs),
         unreachable=tuple(unreachable),
     )
+    route = _with_times(route, model)
     verify_or_raise(
         route, scene, tolerance=verify_tolerance(settings), resolution=settings.resolution
     )
-    return PlanResult(route=route, scene=scene, settings=settings, free=free, roadmap=roadmap)
+    return PlanResult(route=route, scene=scene, settings=settings, free=free, roadmap=roadmap,
+                      leg_states=tuple(leg_states), spaces=spaces, order=report)
+
+
+def _time_model(scene: Scene, settings: Settings
+                ) -> tuple[AxisModel | None, EdgeCost | None, str]:
+    """The job's axis model (None: no time estimates), the road map's edge cost for
+    `cost: time` (None: length) and the cost's name; SceneError when time has no model."""
+    try:
+        model = effective_axes(settings, scene)
+    except AxisSpecError as exc:
+        raise SceneError(scene.file, None, None, exc.path,
+                         f"{exc.message}: the config has no axis model for this to change",
+                         "give the whole model (x and y, each with speed and acceleration) or "
+                         "add an axes section to config/planner.yaml") from None
+    cost_name = effective_cost(settings, scene)
+    if cost_name == "time" and model is None:
+        raise SceneError(scene.file, None, None, "cost",
+                         "cost: time needs the machine's axis model, and there is none",
+                         "add an axes section to config/planner.yaml (docs/motion.md) or use "
+                         "cost: length")
+    return model, (TimeCost(model) if cost_name == "time" else None), cost_name
+
+
+def _with_times(route: Route, model: AxisModel | None) -> Route:
+    """Each leg's estimated traverse time (`time`, seconds, to the millisecond) and the job's
+    total, by the axis model over the rounded points; the route unchanged without a model."""
+    if model is None:
+        return route
+    legs = tuple(
+        replace(leg, extra={**leg.extra, "time": round(path_time(np.asarray(leg.points), model),
+                                                       3)})
+        for leg in route.legs
+    )
+    total = round(sum(leg.extra["time"] for leg in legs), 3)
+    return replace(route, legs=legs, extra={**route.extra, "time": total})
 
 
 def _rounded_leg(

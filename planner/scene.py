@@ -211,6 +211,7 @@ def _scene(value: Any, file: str, sha256: str, settings: Settings) -> Scene:
     obstacles = _obstacles(value.get("obstacles", []), rings, set(ids))
     sequence = value.get("sequence", settings.sequence)
     _check_order(targets, value["targets"], sequence)
+    options = _options(value)
 
     start = _point(value["start"])
     _inside(travel, start, ("start",), "start")
@@ -232,7 +233,24 @@ def _scene(value: Any, file: str, sha256: str, settings: Settings) -> Scene:
         targets=targets,
         finish=finish,
         sequence=sequence,
+        options=options,
     )
+
+
+def _options(value: dict) -> dict:
+    """Scene-level overrides: `cost` (length | time) and `axes` (a checked partial axis model,
+    in the scene's units; see docs/motion.md)."""
+    from .motion import AxisSpecError, check_axes_override
+
+    options: dict = {}
+    if "cost" in value:
+        options["cost"] = value["cost"]
+    if "axes" in value:
+        try:
+            options["axes"] = check_axes_override(value["axes"], "axes")
+        except AxisSpecError as exc:
+            raise Problem(tuple(exc.path.split(".")), exc.message, exc.hint) from None
+    return options
 
 
 def _check_counts(value: dict, limits: Limits) -> None:

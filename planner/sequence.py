@@ -18,7 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .model import FINISH, START, Target
+from .model import FINISH, START, Scene, Target
+from .roadmap import EdgeCost, NoPath, Roadmap
 
 __all__ = [
     "OrderProblem",
@@ -27,6 +28,9 @@ __all__ = [
     "precedence_of",
     "shortest_order",
     "order_cost",
+    "OrderReport",
+    "leg_cost_matrix",
+    "scene_order",
 ]
 
 _FIRST, _NORMAL, _LAST = 0, 1, 2
@@ -235,6 +239,79 @@ def shortest_order(
     rounds = kicks if kicks is not None else min(400, 50 + 4 * n)
     tour = search.iterate(tour, rounds)
     return [int(v) - 1 for v in tour[1:-1]]
+
+
+@dataclass(frozen=True)
+class OrderReport:
+    """The chosen visiting order of a scene and what it saves against the file order.
+
+    `order` indexes scene.targets: the reachable targets in tour order, then the ones the start
+    cannot reach (in file order, so that the planner reports them). Costs are by the road map
+    (`cost` says length or time) over the reachable targets, start to finish.
+    """
+
+    order: tuple[int, ...]
+    cost: str
+    given_cost: float
+    planned_cost: float
+
+    @property
+    def saving(self) -> float:
+        return self.given_cost - self.planned_cost
+
+
+def leg_cost_matrix(
+    roadmap: Roadmap, points: np.ndarray, sources: int, cost: EdgeCost | None = None
+) -> np.ndarray:
+    """Least costs between `points` by the road map: row i from point i (i < `sources`), one
+    single-source search per row; inf where there is no path (or point i is blocked)."""
+    pts = np.asarray(points, dtype=float).reshape(-1, 2)
+    out = np.full((len(pts), len(pts)), np.inf)
+    for i in range(min(sources, len(pts))):
+        try:
+            out[i] = roadmap.distances_from((float(pts[i, 0]), float(pts[i, 1])), pts, cost)
+        except NoPath:
+            continue
+        out[i, i] = 0.0
+    return out
+
+
+def scene_order(
+    scene: Scene,
+    roadmap: Roadmap,
+    *,
+    cost: EdgeCost | None = None,
+    cost_name: str = "length",
+    time_budget_s: float = 30.0,
+) -> OrderReport:
+    """The cheapest order for `sequence: shortest` over the road map's leg costs (all pairs).
+
+    Targets the start cannot reach are left out of the tour (and their constraints with them);
+    an unreachable finish leaves the tour's end free.
+    """
+    n = len(scene.targets)
+    pts = [scene.start, *(t.at for t in scene.targets)]
+    if scene.finish is not None:
+        pts.append(scene.finish)
+    matrix = leg_cost_matrix(roadmap, np.array(pts, dtype=float), n + 1, cost)
+    reach = [k for k in range(n) if np.isfinite(matrix[0, k + 1])]
+    has_finish = scene.finish is not None and bool(np.isfinite(matrix[0, n + 1]))
+    nodes = [0, *(k + 1 for k in reach)] + ([n + 1] if has_finish else [])
+    sub = matrix[np.ix_(nodes, nodes)]
+    if has_finish:  # from the finish nothing is needed; keep the matrix finite there
+        sub[-1, :] = 0.0
+    prec = precedence_of(scene.targets).restricted(reach)
+    tour = shortest_order(sub, has_finish=has_finish, precedence=prec,
+                          time_budget_s=time_budget_s)
+    planned = order_cost(sub, tour, has_finish)
+    given_cost = order_cost(sub, list(range(len(reach))), has_finish)  # the file order
+    unreachable = [k for k in range(n) if k not in set(reach)]
+    return OrderReport(
+        order=tuple([reach[t] for t in tour] + unreachable),
+        cost=cost_name,
+        given_cost=float(given_cost),
+        planned_cost=float(planned),
+    )
 
 
 class _TourSearch:

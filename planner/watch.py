@@ -291,7 +291,7 @@ class Watcher:
         names = self._list_drop() or []
         now = time.monotonic()
         for name in names:
-            self.settler.note(name, file_signature(self.drop / name), now)
+            self._noticed(name, file_signature(self.drop / name), now)
         stems = {self._stem(name) for name in names}
         for entry in sorted(os.listdir(self.out)):
             if entry.endswith(".route.yaml") or entry.endswith(".error.txt"):
@@ -355,11 +355,19 @@ class Watcher:
         if folder == str(self.drop):
             if why_not_a_scene(name, self.options.ignore) is None:
                 LOG.debug("event: %s", name)
-                self.settler.note(name, file_signature(raw), now)
+                self._noticed(name, file_signature(raw), now)
         elif self.config_dir is not None and folder == str(self.config_dir):
             if why_not_a_scene(name) is None:
                 LOG.debug("event: config %s", name)
                 self.settler.note(_CONFIG, _config_signature(self.config_dir), now)
+
+    def _noticed(self, name: str, sig: Signature, now: float) -> None:
+        """A scene file may have changed: let it settle; a new name shows as waiting meanwhile."""
+        self.settler.note(name, sig, now)
+        if sig != MISSING and self.board.get(name) is None:
+            self.board.put(SceneRecord(name, "waiting", utc_stamp(), stem=self._stem(name),
+                                       message="noticed; waiting for the file to settle"))
+            self._dirty = True
 
     def _signature_of(self, key) -> Signature:
         if key == _CONFIG:
@@ -383,7 +391,7 @@ class Watcher:
             sig = file_signature(self.drop / name)
             if self._seen.get(name) != sig and name not in self.settler:
                 LOG.debug("rescan: %s changed", name)
-                self.settler.note(name, sig, now)
+                self._noticed(name, sig, now)
         for name in set(self._seen) - set(names):
             if name not in self.settler:
                 self.settler.note(name, MISSING, now)
@@ -596,8 +604,9 @@ class Watcher:
         if not header or header.get("route") != 1 or header.get("scene_sha256") != sha:
             return None
         before = self._previous.get(name)
-        if isinstance(before, dict) and before.get("config_files_sha256") != self.config_sha:
-            return None
+        recorded = before.get("config_files_sha256") if isinstance(before, dict) else None
+        if recorded is not None and recorded != self.config_sha:
+            return None  # the last run handled it with another config folder
         try:
             scene = load_scene_bytes(data, name, self.settings)
         except (SceneError, ConfigError):

@@ -151,3 +151,132 @@ def test_axes_mapping_is_checked_and_merged_in_units():
     with pytest.raises(AxisSpecError) as err:
         axis_model_from_mapping({"x": {"speed": 1, "acceleration": 1}}, "mm")
     assert err.value.path == "axes.y"
+
+
+# ---- through the pipeline: road-map searches by time, estimates in routes, config and scene keys
+
+def _scene(extra: dict | None = None, **overrides):
+    import yaml
+
+    from planner.config import load_settings
+    from planner.scene import load_scene_bytes
+    from tests.helpers import REPO_CONFIG
+
+    data = {
+        "scene": 1,
+        "travel": {"x": [0, 1000], "y": [0, 600]},
+        "head": {"footprint": [[-1, -1], [1, -1], [1, 1], [-1, 1]], "margin": 0.5},
+        # an arrow pointing right: a flat back (two corners) and a single tip
+        "obstacles": [{"id": "arrow", "polygon": [[300, 250], [600, 250], [800, 300],
+                                                  [600, 350], [300, 350]]}],
+        "start": [500, 100],
+        "targets": [[500, 500]],
+        **(extra or {}),
+    }
+    data.update(overrides)
+    settings = load_settings(REPO_CONFIG)
+    return load_scene_bytes(yaml.safe_dump(data).encode(), "arrow.yaml", settings), settings
+
+
+# Worked example: round the flat back of the arrow is the shorter way (about 603 mm in three
+# moves: 250, 100, 250 before the margin's chamfers) but round the tip is faster when the axes
+# accelerate slowly (two moves of about 361 mm): with 100 mm/s^2 every move is triangular,
+# 2 sqrt(L / a_path), i.e. about 2.83 + 2 + 2.83 = 7.66 s against 3.46 + 3.46 = 6.93 s by hand.
+def test_time_optimal_path_differs_from_the_length_optimal_one():
+    from planner.motion import TimeCost
+    from planner.plan import free_space_and_roadmap
+
+    scene, settings = _scene()
+    _, roadmap = free_space_and_roadmap(scene, settings)
+    slow = AxisModel(Axis(500.0, 100.0), Axis(500.0, 100.0))
+    a, b = scene.start, scene.targets[0].at
+    by_length, length_l = roadmap.path(a, b)
+    by_time, length_t = roadmap.path(a, b, TimeCost(slow))
+    assert np.all(by_length[1:-1, 0] < 300) and np.all(by_time[1:-1, 0] > 800)
+    assert length_l == pytest.approx(603.4, abs=1.0) and length_t == pytest.approx(724.7, abs=1.0)
+    assert path_time(by_time, slow) < path_time(by_length, slow) - 0.3
+    assert path_time(by_time, slow) == pytest.approx(6.93 + 0.55, abs=0.1)  # + the chamfers
+    # the search's own cost is the time of the path it found (before dropping straight-on
+    # points, which can only make it faster)
+    found = float(roadmap.distances_from(a, np.array([b]), TimeCost(slow))[0])
+    assert path_time(by_time, slow) <= found + 1e-9
+    assert found == pytest.approx(path_time(by_time, slow), rel=1e-6)
+
+
+def test_routes_carry_leg_times_and_the_total():
+    from planner.plan import plan_scene
+
+    scene, settings = _scene({"cost": "time", "axes": {"x": {"acceleration": 100},
+                                                       "y": {"acceleration": 100}}})
+    result = plan_scene(scene, settings)
+    route = result.route
+    assert [leg.to_id for leg in route.legs] == ["t1"]
+    leg = route.legs[0]
+    assert max(x for x, _ in leg.points) > 800  # round the tip: cost is time
+    model = AxisModel(Axis(500.0, 100.0), Axis(400.0, 100.0))  # config speeds, scene accels
+    assert leg.extra["time"] == pytest.approx(path_time(np.array(leg.points), model), abs=1e-3)
+    assert route.extra["time"] == pytest.approx(sum(lg.extra["time"] for lg in route.legs))
+
+    scene, settings = _scene()  # cost: length (config default): round the back
+    route = plan_scene(scene, settings).route
+    assert max(x for x, _ in route.legs[0].points[1:-1]) < 300
+    assert route.legs[0].extra["time"] > 0
+
+
+def test_route_file_keeps_the_times():
+    from planner.plan import plan_scene
+    from planner.routefile import dump_route, load_route
+
+    scene, settings = _scene()
+    route = plan_scene(scene, settings).route
+    text = dump_route(route, 0.001)
+    assert f"time: {route.extra['time']:.3f}" in text
+    back = load_route(text)
+    assert back.extra["time"] == pytest.approx(route.extra["time"])
+    assert back.legs[0].extra["time"] == pytest.approx(route.legs[0].extra["time"])
+
+
+def test_bad_axes_in_a_scene_is_one_clear_error():
+    from planner.errors import SceneError
+
+    with pytest.raises(SceneError) as err:
+        _scene({"axes": {"x": {"speed": -5}}})
+    assert "axes" in str(err.value) and "speed" in str(err.value)
+    with pytest.raises(SceneError) as err:
+        _scene({"axes": {"z": {"speed": 5}}})
+    assert "z" in str(err.value)
+    with pytest.raises(SceneError):
+        _scene({"cost": "money"})
+
+
+def test_config_axes_are_checked_and_a_head_can_change_them(tmp_path):
+    from planner.config import effective_config_sha256, load_settings
+    from planner.errors import ConfigError
+    from planner.motion import effective_axes
+    from planner.scene import load_scene_bytes
+    from tests.helpers import REPO_CONFIG
+
+    (tmp_path / "planner.yaml").write_text(
+        "units: inch\naxes:\n  x: {speed: 20, acceleration: 80}\n  y: {speed: 10}\n")
+    with pytest.raises(ConfigError) as err:
+        load_settings(tmp_path)
+    assert "planner.yaml" in str(err.value) and "acceleration" in str(err.value)
+
+    (tmp_path / "planner.yaml").write_text(
+        "units: inch\naxes:\n  x: {speed: 20, acceleration: 80}\n"
+        "  y: {speed: 10, acceleration: 40}\n")
+    (tmp_path / "heads.yaml").write_text(
+        "units: mm\nheads:\n  heavy:\n    footprint: [[-5, -5], [5, -5], [5, 5], [-5, 5]]\n"
+        "    axes: {y: {acceleration: 254}, linear: false}\n")
+    settings = load_settings(tmp_path)
+    text = (b"scene: 1\ntravel: {x: [0, 100], y: [0, 100]}\nhead: heavy\n"
+            b"start: [10, 10]\ntargets: [[90, 90]]\naxes: {x: {speed: 100}}\n")
+    scene = load_scene_bytes(text, "s.yaml", settings)
+    model = effective_axes(settings.in_units("mm"), scene)
+    # inch config (20 in/s = 508 mm/s), mm head (254 mm/s^2), mm scene (100 mm/s)
+    assert model.units == "mm" and model.linear is False
+    assert model.x == Axis(100.0, pytest.approx(80 * 25.4))
+    assert model.y == Axis(pytest.approx(254.0), pytest.approx(254.0))
+    plain = load_settings(REPO_CONFIG)
+    assert effective_config_sha256(settings, scene.head) != effective_config_sha256(
+        plain, scene.head)

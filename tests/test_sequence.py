@@ -254,3 +254,79 @@ def test_given_order_must_already_satisfy_the_constraints():
     pinned = targets(("a", {}), ("b", {"first": True}))
     assert order_problems(pinned, "given")[0].field == "first"
     assert order_problems(targets(("a", {"first": True}), ("b", {})), "given") == []
+
+
+# ---- through the pipeline: `sequence: shortest` in plan_scene and `sidestep check`
+
+def _pipeline_scene(tmp_path, **overrides):
+    from tests.helpers import make_scene_dict, write_scene
+
+    targets = [
+        {"id": "a", "at": [900, 400], "first": True},
+        [100, 450], [950, 60], [300, 250],
+        {"id": "e", "at": [650, 420], "after": "a"},
+        [120, 80], [640, 30],
+        {"id": "inside", "at": [500, 200]},  # in the block: unreachable
+    ]
+    data = make_scene_dict(targets=targets, sequence="shortest", **overrides)
+    return write_scene(tmp_path, data, "tour.yaml")
+
+
+def test_plan_orders_reachable_targets_and_reports_the_rest(tmp_path):
+    from planner.plan import free_space_and_roadmap, plan_scene
+    from planner.scene import load_scene
+
+    config = load_settings(REPO_CONFIG)
+    scene = load_scene(_pipeline_scene(tmp_path), config)
+    result = plan_scene(scene, config)
+    route = result.route
+    visited = [leg.to_id for leg in route.legs]
+    assert visited[0] == "a" and visited[-1] == "finish"
+    assert visited.index("e") > visited.index("a")
+    assert sorted(visited[:-1]) == sorted(t.id for t in scene.targets if t.id != "inside")
+    assert [u.id for u in route.unreachable] == ["inside"]
+    report = result.order
+    assert report is not None and report.cost == "length"
+    assert report.planned_cost <= report.given_cost
+    assert route.length == pytest.approx(report.planned_cost, abs=0.05)
+
+    # Exact optimum by brute force (itertools) over the same road-map lengths.
+    _, roadmap = free_space_and_roadmap(scene, config)
+    reach = [t for t in scene.targets if t.id != "inside"]
+    pts = np.array([scene.start, *(t.at for t in reach), scene.finish])
+    cost = np.array([roadmap.distances_from(tuple(p), pts) for p in pts])
+    prec = precedence_of(reach)
+    best = brute_force(cost, True, list(prec.level), prec.before)
+    assert route.length <= 1.02 * best + 0.05
+
+
+def test_check_prints_times_and_the_saving(tmp_path):
+    import subprocess
+    import sys
+
+    scene = _pipeline_scene(tmp_path)
+    run = subprocess.run([sys.executable, "-m", "planner.cli", "check", str(scene), "--config",
+                          str(REPO_CONFIG)], capture_output=True, text=True, timeout=120)
+    assert run.returncode == 3, run.stderr
+    assert "sequence shortest by length" in run.stdout and "saves" in run.stdout
+    assert " s\n" in run.stdout  # per-leg estimated times
+    assert list(tmp_path.iterdir()) == [scene]  # nothing written
+
+
+# Worked example: on a machine whose y axis is ten times slower than x, a 3 x 3 grid of targets
+# (columns 600 apart, rows 200 apart) is shortest visited column by column (short y moves) but
+# fastest in an order that moves along x wherever it can.
+def test_time_cost_changes_the_order():
+    from planner.motion import Axis, AxisModel, segment_times
+
+    grid = [[x, y] for x in (0, 600, 1200) for y in (200, 400, 600)]
+    pts = np.array([[0, 0], *grid, [0, 0]], dtype=float)  # start, targets, finish
+    slow_y = AxisModel(Axis(1000.0, 5000.0), Axis(100.0, 500.0))
+    d = pts[None, :, :] - pts[:, None, :]
+    lengths = np.hypot(d[..., 0], d[..., 1])
+    times = segment_times(d.reshape(-1, 2), slow_y).reshape(lengths.shape)
+    by_length = shortest_order(lengths, has_finish=True)
+    by_time = shortest_order(times, has_finish=True)
+    assert by_length != by_time
+    assert order_cost(times, by_time, True) < order_cost(times, by_length, True) - 1.0
+    assert order_cost(lengths, by_length, True) < order_cost(lengths, by_time, True)

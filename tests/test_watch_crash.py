@@ -67,6 +67,8 @@ class Reader(threading.Thread):
             self.problems.append(f"{name}: incomplete document {str(doc)[:80]!r}")
             return
         self.routes_read += 1
+        # Strict: in this burst no route is ever replaced or moved, so a reader following the
+        # hand-off rule would never need its "read both again" step; any mismatch is a fault.
         for companion, digest in (doc.get("files") or {}).items():
             try:
                 if sha256((self.out / companion).read_bytes()) != digest:

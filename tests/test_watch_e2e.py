@@ -74,12 +74,15 @@ def test_slow_chunked_write_is_planned_once_and_whole(env: Daemon):
     text = scene_text(targets=[(300, 40 + 30 * i) for i in range(8)])
     data = text.encode()
     path = env.drop / "slow.yaml"
+    seen = set()
     with open(path, "wb") as f:
         for i in range(0, len(data), 60):
             f.write(data[i:i + 60])
             f.flush()
             time.sleep(0.12)  # each pause shorter than the settle time (0.3 s)
+            seen.add((env.entry("slow.yaml") or {}).get("state"))
     env.wait_state("slow.yaml", text)
+    assert "waiting" in seen and "planned" not in seen  # status.json showed it was noticed
     time.sleep(0.5)
     assert env.plans_of("slow.yaml") == 1, env.text()
     assert len(route_of(env.out, "slow")["legs"]) == 8
@@ -297,4 +300,22 @@ def test_second_watcher_on_the_same_output_folder_is_refused(env: Daemon):
                             capture_output=True, text=True, timeout=60)
     assert second.returncode == 2
     assert f"pid {env.proc.pid}" in second.stderr and "Traceback" not in second.stderr
+    assert env.stop() == 0
+
+
+def test_a_replaced_drop_folder_is_watched_again(env: Daemon):
+    # A network share that is remounted: same path, a new folder (another inode).
+    env.start()
+    first = scene_text()
+    (env.drop / "a.yaml").write_text(first)
+    env.wait_state("a.yaml", first)
+    env.drop.rename(env.drop.with_name("drop-old"))
+    env.drop.mkdir()
+    wait_for(lambda: "watching it again" in env.text(), 10, "the new folder to be watched")
+    wait_for(lambda: "a.yaml" not in read_status(env.out)["scenes"], 10, "a.yaml to be retired")
+    assert not (env.out / "a.route.yaml").exists()
+    later = scene_text(targets=[(320, 250)])
+    (env.drop / "c.yaml").write_text(later)
+    env.wait_state("c.yaml", later)
+    assert "event: c.yaml" in env.text()  # noticed by an event, not only by the rescan
     assert env.stop() == 0

@@ -1,0 +1,785 @@
+"""Configuration spaces that follow a job's states: one per footprint, updated as obstacles change.
+
+States of a job differ by a few obstacles (a part that was just cut, a tray that was emptied)
+or by the carried outline. For each distinct footprint this keeps every obstacle's grown pieces
+(computed once) and, per state, only what a change can touch:
+
+- clusters: the present obstacles grouped by grown shapes that meet; each cluster keeps its
+  union, that union shrunk by eps (the road map's visibility test) and the free space's reflex
+  corners along it. A state's union is its clusters side by side (they are disjoint).
+- the triangulation of the free space, in fixed tiles: a tile is triangulated again only when a
+  cluster crossing it changed; the rest are reused.
+- the road map: edges between corners away from the change are kept, less those that now cross
+  an added obstacle; corners near a change walk the triangulation again; where an obstacle went,
+  the other corners walk only the directions that point at the place it left.
+
+A state is derived from the kept state of the same footprint that differs from it least. Every
+step is exact (no approximation beyond the static planner's), so a derived state has the same
+free space and the same shortest paths as one built from scratch; tests compare the two.
+Cluster unions are formed from the member obstacles' pieces, so a state's geometry does not
+depend on the path by which it was reached.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from collections import OrderedDict
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+import shapely
+from scipy.sparse import csr_matrix
+
+from ._visibility import (
+    _build,
+    _CutMismatch,
+    _triangles,
+    node_windows,
+    point_windows,
+    triangulate,
+    walk,
+)
+from .config import Settings
+from .cspace import (
+    EPS_PER_RESOLUTION,
+    FreeSpace,
+    build_free_space,
+    c_obstacle_pieces,
+    checked_union,
+    free_space_key,
+)
+from .model import Obstacle, Ring, Scene
+from .roadmap import Roadmap, build_roadmap, reflex_corners
+from .states import State, footprint_of, present_obstacles
+
+__all__ = ["LegSpace", "StateSpaces", "FootprintSpace", "StateSpace", "StateRoadmap"]
+
+# Region vertices per triangulation tile: small tiles make an update cheap, large ones keep the
+# walks short (fewer cut lines to cross). Common practice, no source: measured on the benchmark
+# scenes (benchmarks/states_bench.py), where a few hundred per tile did best.
+_VERTICES_PER_TILE = 400
+_MAX_TILES_PER_AXIS = 64
+# A derived state that changes more than this share of the obstacles is built whole instead.
+_REBUILD_SHARE = 0.5
+
+
+def _cross(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+    return u[..., 0] * v[..., 1] - u[..., 1] * v[..., 0]
+
+
+def _unit(v: np.ndarray) -> np.ndarray:
+    n = np.hypot(v[..., 0], v[..., 1])
+    return v / np.where(n > 0, n, 1.0)[..., None]
+
+
+@dataclass(frozen=True)
+class LegSpace:
+    """What one leg is planned in: its state, the free space, the road map, and what they were
+    built from (the obstacles present and the footprint), for explanations."""
+
+    state: State
+    free: FreeSpace
+    roadmap: Roadmap
+    obstacles: tuple[Obstacle, ...]
+    footprint: Ring | shapely.Geometry
+
+
+@dataclass(frozen=True, eq=False)
+class _Cluster:
+    """Present obstacles whose grown shapes meet: their union, shrunk union and free corners."""
+
+    key: frozenset[int]  # member indices into FootprintSpace.obstacles
+    geom: shapely.Geometry
+    bounds: tuple[float, float, float, float]
+    shrunk: shapely.Geometry
+    corners_xy: np.ndarray
+    corners_prev: np.ndarray
+    corners_next: np.ndarray
+    pinch: np.ndarray
+
+
+class _UnionFind:
+    def __init__(self, n: int) -> None:
+        self.parent = list(range(n))
+
+    def find(self, i: int) -> int:
+        while self.parent[i] != i:
+            self.parent[i] = self.parent[self.parent[i]]
+            i = self.parent[i]
+        return i
+
+    def join(self, a: int, b: int) -> None:
+        ra, rb = self.find(a), self.find(b)
+        if ra != rb:
+            self.parent[max(ra, rb)] = min(ra, rb)
+
+
+@dataclass(eq=False)
+class _SightSource:
+    """How a derived road map gets a point's sight from its parent's without walking again
+    (only after additions: what a point sees then is what it saw, less what the added obstacles
+    hide, plus the corners near them)."""
+
+    cache: dict
+    child_of_parent: np.ndarray  # parent node -> child node, -1 where it changed
+    added: shapely.STRtree  # boxes around the added obstacles (grown, padded)
+    touched: np.ndarray  # child nodes near a change
+    node_vertex: np.ndarray  # child node -> triangulation vertex
+
+
+@dataclass(eq=False)
+class StateRoadmap(Roadmap):
+    """A road map derived from another state's: the same queries, with sights derived.
+
+    Its cheap occlusion filter is the state's grown pieces shrunk by eps (each lies inside
+    `blocked` shrunk by eps, so a segment meeting one is certainly not visible)."""
+
+    _source: _SightSource | None = None
+    _occluders: shapely.STRtree | None = None
+
+    def _occluded(self, p: np.ndarray, q: np.ndarray) -> np.ndarray:
+        out = np.zeros(len(p), dtype=bool)
+        if self._occluders is None or len(p) == 0:
+            return out
+        moving = np.any(p != q, axis=1)
+        idx = np.flatnonzero(moving)
+        lines = shapely.linestrings(np.stack([p[idx], q[idx]], axis=1))
+        out[idx[np.unique(self._occluders.query(lines, predicate="intersects")[0])]] = True
+        return out
+
+    def _sight(self, pts: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+        src = self._source
+        if src is not None:
+            todo = []
+            for x, y in pts:
+                k = (float(x), float(y))
+                if k not in self._sight_cache and k in src.cache:
+                    todo.append(k)
+            for k in dict.fromkeys(todo):
+                self._sight_cache[k] = self._derived_sight(np.array(k), src)
+        return super()._sight(pts)
+
+    def _derived_sight(self, p: np.ndarray, src: _SightSource) -> tuple[np.ndarray, np.ndarray]:
+        nodes_p, dist_p = src.cache[(float(p[0]), float(p[1]))]
+        child = src.child_of_parent[nodes_p]  # -1 for nodes that changed or a change concerns
+        keep = child >= 0
+        child, dist = child[keep], dist_p[keep]
+        if len(child):
+            lines = shapely.linestrings(np.stack(
+                [np.broadcast_to(p, (len(child), 2)), self.nodes[child]], axis=1))
+            near = np.unique(src.added.query(lines, predicate="intersects")[0])
+            if len(near):
+                ok = np.ones(len(child), dtype=bool)
+                ok[near] = self.visible(np.broadcast_to(p, (len(near), 2)), self.nodes[child[near]])
+                child, dist = child[ok], dist[ok]
+        t = src.touched
+        if len(t):
+            s, v = self._tangent_at_node(p.reshape(1, 2), np.zeros(len(t), dtype=np.int64),
+                                         src.node_vertex[t])
+            cand = np.unique(self._vertex_node[v])
+            cand = cand[cand >= 0]
+            if len(cand):
+                ok = self.visible(np.broadcast_to(p, (len(cand), 2)), self.nodes[cand])
+                cand = cand[ok]
+                child = np.concatenate([child, cand])
+                dist = np.concatenate([dist, np.hypot(*(self.nodes[cand] - p).T)])
+        order = np.argsort(child, kind="stable")
+        return child[order], dist[order]
+
+
+@dataclass(eq=False)
+class StateSpace:
+    """One state of one footprint: its clusters, free space, road map and edge list."""
+
+    present: frozenset[int]
+    clusters: tuple[_Cluster, ...]
+    free: FreeSpace
+    roadmap: Roadmap
+    edges: np.ndarray  # (E, 2) node index pairs, u < v
+    tiles: tuple  # per tile, the key its triangles were cached under
+    stats: dict = field(default_factory=dict)
+
+
+def _expand(bounds: np.ndarray, pad: float) -> np.ndarray:
+    b = np.asarray(bounds, dtype=float).reshape(-1, 4).copy()
+    b[:, :2] -= pad
+    b[:, 2:] += pad
+    return b
+
+
+def _boxes(bounds: np.ndarray) -> np.ndarray:
+    b = np.asarray(bounds, dtype=float).reshape(-1, 4)
+    return shapely.box(b[:, 0], b[:, 1], b[:, 2], b[:, 3])
+
+
+def _match(old: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """For each row of `old`, the index of the equal row of `new` (-1 if none); both sorted
+    lexicographically by (x, y), as road map nodes are."""
+    if len(old) == 0 or len(new) == 0:
+        return np.full(len(old), -1, dtype=np.int64)
+    ko = old[:, 0] + 1j * old[:, 1]
+    kn = new[:, 0] + 1j * new[:, 1]
+    pos = np.searchsorted(kn, ko)
+    pos = np.minimum(pos, len(kn) - 1)
+    return np.where(kn[pos] == ko, pos, -1).astype(np.int64)
+
+
+def _sectors(xy: np.ndarray, boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Directions from each point to each box (outside it): the arc from `lo` counter-clockwise
+    to `hi` that holds the whole box, as unit vectors of shape (P, B, 2)."""
+    corners = np.stack([boxes[:, [0, 1]], boxes[:, [2, 1]], boxes[:, [2, 3]], boxes[:, [0, 3]]],
+                       axis=1)  # (B, 4, 2)
+    d = corners[None, :, :, :] - xy[:, None, None, :]  # (P, B, 4, 2)
+    c = _cross(d[:, :, :, None, :], d[:, :, None, :, :])  # (P, B, 4, 4): cross(d_i, d_j)
+    first = np.all(c >= 0, axis=3)  # every other corner counter-clockwise of i
+    last = np.all(c <= 0, axis=3)
+    i_lo = np.argmax(first, axis=2)
+    i_hi = np.argmax(last, axis=2)
+    lo = np.take_along_axis(d, i_lo[..., None, None], axis=2)[:, :, 0]
+    hi = np.take_along_axis(d, i_hi[..., None, None], axis=2)[:, :, 0]
+    return _unit(lo), _unit(hi)
+
+
+def _in_arc(x: np.ndarray, lo: np.ndarray, hi: np.ndarray, tol: float) -> np.ndarray:
+    return (_cross(lo, x) >= -tol) & (_cross(x, hi) >= -tol)
+
+
+def _arc_and(a0, a1, b0, b1, tol: float):
+    """Intersection of two counter-clockwise arcs narrower than pi: (lo, hi, non-empty)."""
+    a0_in = _in_arc(a0, b0, b1, tol)
+    b0_in = _in_arc(b0, a0, a1, tol)
+    a1_in = _in_arc(a1, b0, b1, tol)
+    lo = np.where(a0_in[..., None], a0, b0)
+    hi = np.where(a1_in[..., None], a1, b1)
+    return lo, hi, a0_in | b0_in
+
+
+class FootprintSpace:
+    """The configuration spaces of one footprint for any set of the scene's avoided obstacles.
+
+    `state(present)` gives the StateSpace for a set of obstacle indices (into `obstacles`),
+    derived from the nearest kept one. Keeps the `keep` most recently used states.
+    """
+
+    def __init__(self, scene: Scene, settings: Settings, footprint: Ring | shapely.Geometry,
+                 obstacles: Sequence[Obstacle], *, keep: int = 3) -> None:
+        self.scene = scene
+        self.settings = settings
+        self.footprint = footprint
+        self.obstacles = tuple(obstacles)
+        self.keep = max(1, keep)
+        self.clearance = scene.head.margin + settings.resolution
+        self.eps = settings.resolution * EPS_PER_RESOLUTION
+        t = scene.travel
+        self.box = shapely.box(t.xmin, t.ymin, t.xmax, t.ymax)
+        diameter = self.diameter = float(np.hypot(t.xmax - t.xmin, t.ymax - t.ymin)) or 1.0
+        self.tol = max(self.eps / diameter, 1e-11)
+        self.pad = 4.0 * self.eps + 4.0 * self.tol * diameter  # around a change: who may see it
+
+        t0 = time.perf_counter()
+        pieces, owner = c_obstacle_pieces(self.obstacles, footprint, self.clearance,
+                                          settings.arc_tolerance)
+        order = np.argsort(owner, kind="stable")
+        self._pieces = pieces[order]
+        self._ptr = np.zeros(len(self.obstacles) + 1, dtype=np.int64)
+        np.cumsum(np.bincount(owner, minlength=len(self.obstacles)), out=self._ptr[1:])
+        pb = shapely.bounds(self._pieces) if len(self._pieces) else np.zeros((0, 4))
+        self._bounds = np.array([
+            [pb[a:b, 0].min(), pb[a:b, 1].min(), pb[a:b, 2].max(), pb[a:b, 3].max()]
+            if b > a else [np.inf, np.inf, -np.inf, -np.inf]
+            for a, b in zip(self._ptr[:-1], self._ptr[1:], strict=True)
+        ]).reshape(-1, 4)
+        self._grown: dict[int, shapely.Geometry] = {}
+        self._occluders: dict[int, np.ndarray] = {}
+        self._clusters: dict[frozenset[int], _Cluster] = {}
+        self._tile_cache: dict[tuple, np.ndarray] = {}
+        self._states: OrderedDict[frozenset[int], StateSpace] = OrderedDict()
+        self._grid(int(shapely.get_num_coordinates(self._pieces).sum()) if len(pieces) else 0)
+        self.stats: dict = {"pieces_s": time.perf_counter() - t0, "built": 0, "derived": 0,
+                            "fallback_triangulations": 0, "updates_s": [], "build_s": []}
+
+    # -- pieces and clusters ----------------------------------------------------------------------
+
+    def pieces_of(self, i: int) -> np.ndarray:
+        return self._pieces[self._ptr[i]:self._ptr[i + 1]]
+
+    def grown(self, i: int) -> shapely.Geometry:
+        g = self._grown.get(i)
+        if g is None:
+            g = self._grown[i] = checked_union(self.pieces_of(i), self.eps)
+        return g
+
+    def _occluders_of(self, i: int) -> np.ndarray:
+        occ = self._occluders.get(i)
+        if occ is None:
+            occ = self._occluders[i] = shapely.buffer(self.pieces_of(i), -self.eps,
+                                                      join_style="mitre")
+        return occ
+
+    def _cluster(self, key: frozenset[int]) -> _Cluster:
+        cl = self._clusters.get(key)
+        if cl is not None:
+            return cl
+        members = sorted(key)
+        pieces = np.concatenate([self.pieces_of(i) for i in members])
+        geom = checked_union(pieces, self.eps)
+        shapely.prepare(geom)
+        shrunk = geom.buffer(-self.eps, join_style="mitre")
+        corners = reflex_corners(shapely.difference(self.box, geom))
+        cl = _Cluster(key, geom, tuple(map(float, geom.bounds)), shrunk, corners.xy,
+                      corners.prev, corners.next, corners.pinch)
+        self._clusters[key] = cl
+        return cl
+
+    def _clusters_for(self, present: frozenset[int], parent: StateSpace | None
+                      ) -> tuple[_Cluster, ...]:
+        """Group the present obstacles into clusters, reusing the parent's unchanged ones."""
+        kept: list[_Cluster] = []
+        loose: set[int] = set(present)
+        if parent is not None:
+            loose = set(present - parent.present)
+            removed = parent.present - present
+            for cl in parent.clusters:
+                if cl.key & removed:
+                    loose |= cl.key - removed
+                else:
+                    kept.append(cl)
+        loose_list = sorted(loose)
+        if not loose_list:
+            return tuple(sorted(kept, key=lambda c: min(c.key)))
+        geoms = np.array([c.geom for c in kept] + [self.grown(i) for i in loose_list],
+                         dtype=object)
+        k = len(kept)
+        tree = shapely.STRtree(geoms)
+        a, b = tree.query(geoms[k:], predicate="intersects")
+        uf = _UnionFind(len(geoms))
+        for i, j in zip(a + k, b, strict=True):
+            uf.join(int(i), int(j))
+        groups: dict[int, list[int]] = {}
+        for i in range(len(geoms)):
+            groups.setdefault(uf.find(i), []).append(i)
+        out = []
+        for items in groups.values():
+            if len(items) == 1 and items[0] < k:
+                out.append(kept[items[0]])
+                continue
+            key: set[int] = set()
+            for i in items:
+                key |= kept[i].key if i < k else {loose_list[i - k]}
+            out.append(self._cluster(frozenset(key)))
+        return tuple(sorted(out, key=lambda c: min(c.key)))
+
+    # -- tiles ------------------------------------------------------------------------------------
+
+    def _grid(self, vertices: int) -> None:
+        x0, y0, x1, y1 = self.box.bounds
+        n = max(1, vertices // _VERTICES_PER_TILE)
+        nx = int(np.clip(round(np.sqrt(n * (x1 - x0) / (y1 - y0))), 1, _MAX_TILES_PER_AXIS))
+        ny = int(np.clip(-(-n // nx), 1, _MAX_TILES_PER_AXIS))
+        # cut at odd fractions so that no cut line is likely to run along an obstacle edge
+        self.cut_x = x0 + (x1 - x0) * (np.arange(1, nx) + 0.1180339887) / nx
+        self.cut_y = y0 + (y1 - y0) * (np.arange(1, ny) + 0.1180339887) / ny
+        ex, ey = np.r_[x0, self.cut_x, x1], np.r_[y0, self.cut_y, y1]
+        self.tile_bounds = np.array([[ex[i], ey[j], ex[i + 1], ey[j + 1]]
+                                     for i in range(nx) for j in range(ny)])
+
+    def _tile_keys(self, clusters: Sequence[_Cluster]) -> list[tuple]:
+        tb = self.tile_bounds
+        if not clusters:
+            return [(t,) for t in range(len(tb))]
+        cb = np.array([c.bounds for c in clusters])
+        hit = ((cb[None, :, 0] <= tb[:, None, 2]) & (cb[None, :, 2] >= tb[:, None, 0])
+               & (cb[None, :, 1] <= tb[:, None, 3]) & (cb[None, :, 3] >= tb[:, None, 1]))
+        return [(t, *(clusters[j].key for j in np.flatnonzero(hit[t]))) for t in range(len(tb))]
+
+    def _tile_triangles(self, key: tuple, region: shapely.Geometry) -> np.ndarray:
+        tris = self._tile_cache.get(key)
+        if tris is None:
+            x0, y0, x1, y1 = self.tile_bounds[key[0]]
+            part = shapely.clip_by_rect(region, x0, y0, x1, y1)
+            tris = self._tile_cache[key] = _triangles([part])
+        return tris
+
+    def _trim_tiles(self) -> None:
+        """Forget tile triangulations no kept state uses (bounded memory)."""
+        used = {k for s in self._states.values() for k in s.tiles}
+        if len(self._tile_cache) > 2 * len(used) + len(self.tile_bounds):
+            self._tile_cache = {k: v for k, v in self._tile_cache.items() if k in used}
+        live = {c.key for s in self._states.values() for c in s.clusters}
+        if len(self._clusters) > 4 * len(live) + 64:
+            self._clusters = {k: v for k, v in self._clusters.items() if k in live}
+
+    # -- states -----------------------------------------------------------------------------------
+
+    def state(self, present: frozenset[int]) -> StateSpace:
+        """The state with exactly these obstacles present (indices into `obstacles`)."""
+        present = frozenset(present)
+        st = self._states.get(present)
+        if st is not None:
+            self._states.move_to_end(present)
+            return st
+        parent = None
+        if self._states:
+            parent = min(reversed(self._states.values()),
+                         key=lambda s: len(s.present ^ present))
+            if len(parent.present ^ present) > _REBUILD_SHARE * max(len(present), 1) + 2:
+                parent = None
+        t0 = time.perf_counter()
+        st = self._build(present, parent)
+        kind = "derived" if parent is not None else "built"
+        self.stats[kind] += 1
+        self.stats["updates_s" if parent is not None else "build_s"].append(
+            time.perf_counter() - t0)
+        self._states[present] = st
+        while len(self._states) > self.keep:
+            self._states.popitem(last=False)
+        self._trim_tiles()
+        return st
+
+    def _free_space(self, present: frozenset[int], clusters: Sequence[_Cluster]) -> FreeSpace:
+        members = sorted(present)
+        obstacles = [self.obstacles[i] for i in members]
+        if members:
+            pieces = np.concatenate([self.pieces_of(i) for i in members])
+            owner = np.concatenate([np.full(self._ptr[i + 1] - self._ptr[i], j, dtype=np.int64)
+                                    for j, i in enumerate(members)])
+        else:
+            pieces, owner = np.empty(0, dtype=object), np.zeros(0, dtype=np.int64)
+        parts = [p for c in clusters for p in shapely.get_parts(c.geom)]
+        if not parts:
+            blocked = shapely.Polygon()
+        elif len(parts) == 1:
+            blocked = parts[0]
+        else:
+            blocked = shapely.multipolygons(parts)
+        if not shapely.is_valid(blocked):
+            blocked = checked_union(np.array([c.geom for c in clusters], dtype=object), self.eps)
+        region = shapely.difference(self.box, blocked)
+        if not shapely.is_valid(region):  # let the static builder repair it (or refuse)
+            return build_free_space(self.scene, self.settings, obstacles=obstacles,
+                                    footprint=self.footprint)
+        t = self.scene.travel
+        return FreeSpace(
+            units=self.scene.units, travel=t, box=self.box, clearance=self.clearance,
+            eps=self.eps, blocked=blocked, region=region,
+            obstacle_ids=tuple(o.id for o in obstacles), pieces=pieces, piece_owner=owner,
+            key=free_space_key(self.scene, self.settings, obstacles=obstacles,
+                               footprint=self.footprint),
+        )
+
+    def _build(self, present: frozenset[int], parent: StateSpace | None) -> StateSpace:
+        timing: dict[str, float] = {}
+        t0 = time.perf_counter()
+        clusters = self._clusters_for(present, parent)
+        free = self._free_space(present, clusters)
+        timing["clusters"] = time.perf_counter() - t0
+
+        # corners: the clusters' own, side by side
+        cxy = [c.corners_xy for c in clusters]
+        c_xy_all = np.concatenate(cxy) if cxy else np.zeros((0, 2))
+        c_prev_all = np.concatenate([c.corners_prev for c in clusters]) if cxy else np.zeros(
+            (0, 2))
+        c_next_all = np.concatenate([c.corners_next for c in clusters]) if cxy else np.zeros(
+            (0, 2))
+        pinch_all = np.concatenate([c.pinch for c in clusters]) if cxy else np.zeros((0, 2))
+        points = np.concatenate([c_xy_all, pinch_all])
+
+        # triangulation: tiles, reused where their clusters did not change
+        t1 = time.perf_counter()
+        keys = self._tile_keys(clusters)
+        fallback = False
+        try:
+            tris = [self._tile_triangles(k, free.region) for k in keys]
+            tris = np.concatenate(tris) if tris else np.empty(0, dtype=object)
+            tri, ids = _build(tris, points, self.cut_x, self.cut_y)
+        except (shapely.errors.GEOSException, _CutMismatch):
+            tri, ids = triangulate(free.region, points)
+            fallback = True
+            self.stats["fallback_triangulations"] += 1
+            for k in keys:
+                self._tile_cache.pop(k, None)
+        timing["triangulate"] = time.perf_counter() - t1
+
+        corner_vertex, pinch_vertex = ids[: len(c_xy_all)], ids[len(c_xy_all):]
+        pinch_vertex = pinch_vertex[pinch_vertex >= 0]
+        is_pinch = np.zeros(len(tri.xy), dtype=bool)
+        is_pinch[pinch_vertex] = True
+        placed = (corner_vertex >= 0) & ~is_pinch[np.maximum(corner_vertex, 0)]
+        c_vertex = corner_vertex[placed]
+        c_xy, c_prev, c_next = c_xy_all[placed], c_prev_all[placed], c_next_all[placed]
+        order = np.argsort(c_vertex, kind="stable")
+        c_vertex, c_xy, c_prev, c_next = c_vertex[order], c_xy[order], c_prev[order], c_next[order]
+        corner_ptr = np.zeros(len(tri.xy) + 1, dtype=np.int64)
+        np.cumsum(np.bincount(c_vertex, minlength=len(tri.xy)), out=corner_ptr[1:])
+        node_vertex = np.unique(np.concatenate([c_vertex, pinch_vertex]))
+        vertex_node = np.full(len(tri.xy), -1, dtype=np.int64)
+        vertex_node[node_vertex] = np.arange(len(node_vertex))
+        nodes = tri.xy[node_vertex]
+        n = len(nodes)
+        shrunk_parts = [p for c in clusters for p in shapely.get_parts(c.shrunk)
+                        if not p.is_empty]
+        shrunk = (shapely.multipolygons(shrunk_parts) if len(shrunk_parts) > 1
+                  else shrunk_parts[0] if shrunk_parts else shapely.Polygon())
+        if not shrunk.is_empty:
+            shapely.prepare(shrunk)
+        # occluders for the road map's cheap filter: the present pieces shrunk by eps lie
+        # inside `blocked` shrunk by eps, so a segment meeting one is certainly not visible
+        occ = [self._occluders_of(i) for i in sorted(present)]
+        occ = np.concatenate(occ) if occ else np.empty(0, dtype=object)
+        occ = occ[~shapely.is_empty(occ)] if len(occ) else occ
+        try:
+            roadmap = _make_roadmap(
+                free=free, nodes=nodes, graph=csr_matrix((n, n)), stats={}, _tri=tri,
+                _shrunk=shrunk, _tol=self.tol, _vertex_node=vertex_node,
+                _corner_ptr=corner_ptr, _corner_prev=c_prev, _corner_next=c_next,
+                _pinch=is_pinch, _occ_xy=c_xy, _occ_up=_unit(c_prev - c_xy),
+                _occ_un=_unit(c_next - c_xy), _occ_node=vertex_node[c_vertex],
+                _pinch_nodes=vertex_node[pinch_vertex],
+                _occluders=shapely.STRtree(occ) if len(occ) else None,
+            )
+        except _OutOfStep as exc:  # roadmap.Roadmap changed: build this state whole
+            self.stats["out_of_step"] = str(exc)
+            whole = build_roadmap(free)
+            g = whole.graph.tocoo()
+            up = g.row < g.col
+            return StateSpace(present=present, clusters=clusters, free=free, roadmap=whole,
+                              edges=np.stack([g.row[up], g.col[up]], axis=1).astype(np.int64),
+                              tiles=tuple(keys), stats=whole.stats)
+
+        # which nodes a change may concern, and the parent's edges that still hold
+        t1 = time.perf_counter()
+        added = sorted(present - parent.present) if parent is not None else []
+        removed = sorted(parent.present - present) if parent is not None else []
+        kept_edges = np.zeros((0, 2), dtype=np.int64)
+        child_of_parent = None
+        if parent is None:
+            touched = np.ones(n, dtype=bool)
+        else:
+            changed = _expand(self._bounds[added + removed], self.pad)
+            touched = np.ones(n, dtype=bool)
+            child_of_parent = _match(parent.roadmap.nodes, nodes)
+            found = child_of_parent[child_of_parent >= 0]
+            touched[found] = False
+            if len(changed) and n:
+                near = shapely.STRtree(_boxes(changed)).query(shapely.points(nodes),
+                                                               predicate="intersects")[0]
+                touched[near] = True
+            if removed:
+                touched[vertex_node[pinch_vertex]] = True  # pinch points look every way
+            child_of_parent = np.where(child_of_parent >= 0, child_of_parent, -1)
+            ok_parent = child_of_parent >= 0
+            ok_parent[ok_parent] = ~touched[child_of_parent[ok_parent]]
+            child_of_parent[~ok_parent] = -1
+            pe = parent.edges
+            cu, cv = child_of_parent[pe[:, 0]], child_of_parent[pe[:, 1]]
+            both = (cu >= 0) & (cv >= 0)
+            kept_edges = np.stack([cu[both], cv[both]], axis=1)
+            kept_edges = np.stack([kept_edges.min(axis=1), kept_edges.max(axis=1)], axis=1)
+            if added and len(kept_edges):
+                boxes = shapely.STRtree(_boxes(_expand(self._bounds[added], self.pad)))
+                lines = shapely.linestrings(np.stack(
+                    [nodes[kept_edges[:, 0]], nodes[kept_edges[:, 1]]], axis=1))
+                near = np.unique(boxes.query(lines, predicate="intersects")[0])
+                if len(near):
+                    ok = np.ones(len(kept_edges), dtype=bool)
+                    ok[near] = roadmap.visible(nodes[kept_edges[near, 0]],
+                                               nodes[kept_edges[near, 1]])
+                    kept_edges = kept_edges[ok]
+        timing["keep"] = time.perf_counter() - t1
+
+        # walks: every way from the nodes a change concerns; towards what went from the others
+        t1 = time.perf_counter()
+        pairs = [self._walk_all(roadmap, tri, c_vertex, c_xy, c_prev, c_next, pinch_vertex,
+                                touched)]
+        if removed:
+            pairs.append(self._walk_towards(roadmap, tri, c_vertex, c_xy, c_prev, c_next,
+                                            ~touched, _expand(self._bounds[removed], self.pad)))
+        timing["walk"] = time.perf_counter() - t1
+        t1 = time.perf_counter()
+        cand = np.concatenate(pairs)
+        if len(cand):
+            cand = np.unique(cand, axis=0)
+        if len(cand) and len(kept_edges):
+            known = np.isin(cand[:, 0] * n + cand[:, 1], kept_edges[:, 0] * n + kept_edges[:, 1])
+            cand = cand[~known]
+        ok = roadmap.visible(nodes[cand[:, 0]], nodes[cand[:, 1]]) if len(cand) else np.zeros(
+            0, bool)
+        edges = np.concatenate([kept_edges, cand[ok]]) if len(cand) else kept_edges
+        edges = np.unique(edges, axis=0) if len(edges) else np.zeros((0, 2), dtype=np.int64)
+        w = np.hypot(*(nodes[edges[:, 0]] - nodes[edges[:, 1]]).T)
+        roadmap.graph = csr_matrix(
+            (np.concatenate([w, w]), (np.concatenate([edges[:, 0], edges[:, 1]]),
+                                      np.concatenate([edges[:, 1], edges[:, 0]]))),
+            shape=(n, n),
+        )
+        timing["exact-visibility"] = time.perf_counter() - t1
+        if parent is not None and not removed and added:
+            roadmap._source = _SightSource(
+                cache=parent.roadmap._sight_cache, child_of_parent=child_of_parent,
+                added=shapely.STRtree(_boxes(_expand(self._bounds[added], self.pad))),
+                touched=np.flatnonzero(touched), node_vertex=node_vertex)
+        elif parent is not None and not removed and not added:
+            roadmap._sight_cache.update(parent.roadmap._sight_cache)
+        timing["total"] = time.perf_counter() - t0
+        roadmap.stats = {
+            "corners": int(len(c_xy_all)),
+            "corners-unplaced": int((corner_vertex < 0).sum()),
+            "pinch-points": int(len(pinch_vertex)),
+            "nodes": int(n),
+            "triangles": int(len(tri.tri)),
+            "touched": int(touched.sum()),
+            "kept-edges": int(len(kept_edges)),
+            "edges": int(len(edges)),
+            "derived": parent is not None,
+            "fallback-triangulation": fallback,
+            "seconds": timing,
+        }
+        return StateSpace(present=present, clusters=clusters, free=free, roadmap=roadmap,
+                          edges=edges, tiles=tuple(keys), stats=roadmap.stats)
+
+    def _walk_all(self, roadmap: Roadmap, tri, c_vertex, c_xy, c_prev, c_next, pinch_vertex,
+                  touched: np.ndarray) -> np.ndarray:
+        """Candidate pairs (u < v, node indices) seen from the touched nodes, every way they
+        look: corners along their tangent lines, pinch points all round."""
+        vn = roadmap._vertex_node
+        sel = touched[vn[c_vertex]] if len(c_vertex) else np.zeros(0, bool)
+        cv, cxy = c_vertex[sel], c_xy[sel]
+        out = []
+        if len(cv):
+            lo = _unit(c_next[sel] - cxy)
+            hi = _unit(cxy - c_prev[sel])
+            windows, seen_src, seen_v = node_windows(
+                tri, cv, np.stack([lo, -lo], axis=1), np.stack([hi, -hi], axis=1), self.tol)
+            w_src, w_v = walk(tri, cxy, windows, self.tol)
+            src, vert = roadmap._tangent_at_node(cxy, np.concatenate([seen_src, w_src]),
+                                                 np.concatenate([seen_v, w_v]))
+            out.append(np.stack([vn[cv[src]], vn[vert]], axis=1))
+        pv = pinch_vertex[touched[vn[pinch_vertex]]] if len(pinch_vertex) else pinch_vertex
+        if len(pv):
+            p_xy = tri.xy[pv]
+            fans = [tri.fan_tri[tri.fan_ptr[v]:tri.fan_ptr[v + 1]] for v in pv]
+            windows, p_src, p_v = point_windows(tri, p_xy, fans, self.tol)
+            w_src, w_v = walk(tri, p_xy, windows, self.tol)
+            src, vert = roadmap._tangent_at_node(p_xy, np.concatenate([p_src, w_src]),
+                                                 np.concatenate([p_v, w_v]))
+            out.append(np.stack([vn[pv[src]], vn[vert]], axis=1))
+        return _pairs(out)
+
+    def _walk_towards(self, roadmap: Roadmap, tri, c_vertex, c_xy, c_prev, c_next,
+                      kept: np.ndarray, boxes: np.ndarray) -> np.ndarray:
+        """Candidate pairs seen from the kept corners, looking only at the boxes where
+        obstacles went (their tangent cones cut down to the directions of each box)."""
+        vn = roadmap._vertex_node
+        sel = kept[vn[c_vertex]] if len(c_vertex) else np.zeros(0, bool)
+        cv, cxy = c_vertex[sel], c_xy[sel]
+        if len(cv) == 0 or len(boxes) == 0:
+            return np.zeros((0, 2), dtype=np.int64)
+        lo = _unit(c_next[sel] - cxy)
+        hi = _unit(cxy - c_prev[sel])
+        s_lo, s_hi = _sectors(cxy, boxes)  # (P, B, 2)
+        out = []
+        for a0, a1 in ((lo, hi), (-lo, -hi)):
+            w_lo, w_hi, ok = _arc_and(a0[:, None, :], a1[:, None, :], s_lo, s_hi, self.tol)
+            rows, b = np.nonzero(ok)
+            if len(rows) == 0:
+                continue
+            windows, seen_src, seen_v = node_windows(
+                tri, cv[rows], w_lo[rows, b][:, None, :], w_hi[rows, b][:, None, :], self.tol)
+            w_src, w_v = walk(tri, cxy[rows], windows, self.tol)
+            src, vert = roadmap._tangent_at_node(cxy[rows], np.concatenate([seen_src, w_src]),
+                                                 np.concatenate([seen_v, w_v]))
+            out.append(np.stack([vn[cv[rows][src]], vn[vert]], axis=1))
+        return _pairs(out)
+
+
+class _OutOfStep(Exception):
+    """roadmap.Roadmap has a required field this module does not know how to fill."""
+
+
+# Fields of roadmap.Roadmap that hold build_roadmap's own occlusion filter: left empty here
+# (StateRoadmap brings its own filter). A filter only ever drops certainly hidden candidates.
+_EMPTY_FILTERS = {"_disk_xy": lambda: np.empty((0, 2)), "_disk_r": lambda: np.empty(0),
+                  "_disk_tree": lambda: None}
+
+
+def _make_roadmap(**parts) -> StateRoadmap:
+    """A StateRoadmap from the parts build_roadmap also makes (kept in step with its fields:
+    an unknown required field raises _OutOfStep, and the state is then built whole)."""
+    kwargs = {}
+    for f in dataclasses.fields(StateRoadmap):
+        if f.name in parts:
+            kwargs[f.name] = parts[f.name]
+        elif f.default is not dataclasses.MISSING or (
+                f.default_factory is not dataclasses.MISSING):
+            continue
+        elif f.name in _EMPTY_FILTERS:
+            kwargs[f.name] = _EMPTY_FILTERS[f.name]()
+        else:
+            raise _OutOfStep(f"roadmap.Roadmap field {f.name!r} is new to incremental.py")
+    return StateRoadmap(**kwargs)
+
+
+def _pairs(parts: list[np.ndarray]) -> np.ndarray:
+    """Node pairs as (min, max) rows, self pairs dropped."""
+    if not parts:
+        return np.zeros((0, 2), dtype=np.int64)
+    p = np.concatenate(parts)
+    p = p[(p[:, 0] >= 0) & (p[:, 1] >= 0) & (p[:, 0] != p[:, 1])]
+    return np.stack([p.min(axis=1), p.max(axis=1)], axis=1) if len(p) else np.zeros(
+        (0, 2), dtype=np.int64)
+
+
+def _footprint_key(footprint: Ring | shapely.Geometry) -> bytes:
+    geom = footprint if isinstance(footprint, shapely.Geometry) else shapely.Polygon(footprint)
+    return shapely.to_wkb(shapely.normalize(geom))
+
+
+class StateSpaces:
+    """Free space and road map for every state of one job's scene, one FootprintSpace per
+    distinct footprint (the head alone, or with each carried outline).
+
+    With `incremental=False` every state is built from scratch (build_free_space and
+    build_roadmap), the reference the incremental one is tested against.
+    """
+
+    def __init__(self, scene: Scene, settings: Settings, *, incremental: bool = True,
+                 keep: int = 3) -> None:
+        self.scene = scene
+        self.settings = settings
+        self.incremental = incremental
+        self.keep = keep
+        self._avoided = tuple(o for o in scene.obstacles
+                              if o.is_avoided(scene.head.ride_height))
+        self._index = {o.id: i for i, o in enumerate(self._avoided)}
+        self._spaces: dict[bytes, FootprintSpace] = {}
+        self._static: OrderedDict[tuple, LegSpace] = OrderedDict()
+
+    def footprint_spaces(self) -> list[FootprintSpace]:
+        return list(self._spaces.values())
+
+    def get(self, state: State) -> LegSpace:
+        """The free space and road map a leg in `state` is planned in."""
+        footprint = footprint_of(self.scene, state)
+        obstacles = present_obstacles(self.scene, state)
+        if not self.incremental:
+            key = (state.present, _footprint_key(footprint))
+            hit = self._static.get(key)
+            if hit is None:
+                free = build_free_space(self.scene, self.settings, obstacles=obstacles,
+                                        footprint=footprint)
+                hit = LegSpace(state, free, build_roadmap(free), obstacles, footprint)
+                self._static[key] = hit
+                while len(self._static) > self.keep:
+                    self._static.popitem(last=False)
+            self._static.move_to_end(key)
+            return LegSpace(state, hit.free, hit.roadmap, obstacles, footprint)
+        fkey = _footprint_key(footprint)
+        space = self._spaces.get(fkey)
+        if space is None:
+            space = self._spaces[fkey] = FootprintSpace(self.scene, self.settings, footprint,
+                                                        self._avoided, keep=self.keep)
+        present = frozenset(self._index[i] for i in state.present if i in self._index)
+        st = space.state(present)
+        return LegSpace(state, st.free, st.roadmap, obstacles, footprint)
