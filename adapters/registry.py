@@ -1,7 +1,7 @@
 """Find adapters: built-in and third-party ones alike, through the `sidestep.adapters` entry points.
 
 A plugin is any installed distribution with an entry point in the group, e.g. in its
-pyproject.toml: `[project.entry-points."sidestep.adapters"]` / `plc = "acme_plc:PlcAdapter"`.
+pyproject.toml: `[project.entry-points."sidestep.adapters"]` / `plc = "plant_plc:PlcAdapter"`.
 The entry point's name is the adapter's name in planner.yaml (`adapters: [csv, plc]`).
 """
 

@@ -28,13 +28,13 @@ requires = ["setuptools"]
 build-backend = "setuptools.build_meta"
 
 [project]
-name = "acme-plc-points"
+name = "plant-plc-points"
 version = "1.0"
 
 [project.entry-points."sidestep.adapters"]
-plc = "acme_plc_points:PlcPoints"
-plc_broken = "acme_plc_points.broken:Broken"
-plc_sneaky = "acme_plc_points:Sneaky"
+plc = "plant_plc_points:PlcPoints"
+plc_broken = "plant_plc_points.broken:Broken"
+plc_sneaky = "plant_plc_points:Sneaky"
 """
 
 MODULE = '''\
@@ -44,7 +44,7 @@ MODULE = '''\
 class PlcPoints:
     name = "plc"
     suffix = ".plc.txt"
-    summary = "point list for the ACME line PLC"
+    summary = "point list for the press line PLC"
 
     def write(self, route, settings, job=None):
         sep = settings.get("separator", " ")
@@ -63,7 +63,7 @@ class Sneaky:
         return ""
 '''
 
-BROKEN = 'raise ImportError("the vendor library acme_fieldbus is not installed")\n'
+BROKEN = 'raise ImportError("the vendor library plant_fieldbus is not installed")\n'
 
 
 @pytest.fixture(scope="module")
@@ -71,7 +71,7 @@ def plugin_dir(tmp_path_factory) -> Path:
     """pip builds and installs the distribution into a temp target (no index, no network)."""
     src = tmp_path_factory.mktemp("plugin-src")
     (src / "pyproject.toml").write_text(PYPROJECT)
-    pkg = src / "acme_plc_points"
+    pkg = src / "plant_plc_points"
     pkg.mkdir()
     (pkg / "__init__.py").write_text(MODULE)
     (pkg / "broken.py").write_text(BROKEN)
@@ -87,13 +87,13 @@ def plugin_dir(tmp_path_factory) -> Path:
 
 def test_the_plugin_is_found_through_its_package_metadata(plugin_dir, monkeypatch):
     monkeypatch.syspath_prepend(str(plugin_dir))
-    dist = distribution("acme-plc-points")
+    dist = distribution("plant-plc-points")
     assert {ep.name for ep in dist.entry_points if ep.group == "sidestep.adapters"} == {
         "plc", "plc_broken", "plc_sneaky"}
 
     entries = {e.name: e for e in adapter_entries()}
-    assert entries["plc"].distribution == "acme-plc-points" and entries["plc"].problem is None
-    assert "acme_fieldbus" in entries["plc_broken"].problem  # a broken plugin says why
+    assert entries["plc"].distribution == "plant-plc-points" and entries["plc"].problem is None
+    assert "plant_fieldbus" in entries["plc_broken"].problem  # a broken plugin says why
     assert "scene" in entries["plc_sneaky"].problem  # a scene's suffix is refused
     assert {"csv", "gcode", "plc"} <= set(installed_adapters())
 
@@ -125,8 +125,8 @@ def test_sidestep_adapters_lists_the_plugin_one_line_each(plugin_dir):
     run = _cli("adapters", plugin_dir=plugin_dir)
     assert run.returncode == 0, run.stderr
     lines = {line.split()[0]: line for line in run.stdout.splitlines()}
-    assert ".plc.txt" in lines["plc"] and "ACME line PLC" in lines["plc"]
-    assert "cannot be used" in lines["plc_broken"] and "acme-plc-points" in lines["plc_broken"]
+    assert ".plc.txt" in lines["plc"] and "press line PLC" in lines["plc"]
+    assert "cannot be used" in lines["plc_broken"] and "plant-plc-points" in lines["plc_broken"]
     assert ".csv" in lines["csv"] and ".nc" in lines["gcode"]
 
 
