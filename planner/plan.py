@@ -13,13 +13,13 @@ import numpy as np
 
 from .config import Settings, effective_config_sha256
 from .cspace import FreeSpace, build_free_space, free_space_key
-from .errors import SceneError
+from .errors import PlanningError, SceneError
 from .explain import Explainer
 from .incremental import StateSpaces
 from .model import FINISH, START, Leg, Point, Route, Scene, Travel, Unreachable
 from .motion import AxisModel, AxisSpecError, TimeCost, effective_axes, effective_cost, path_time
 from .roadmap import EdgeCost, NoPath, Roadmap, build_roadmap
-from .routefile import round_to_resolution
+from .routefile import grid_inside, round_to_resolution
 from .sequence import OrderReport, scene_order
 from .stateorder import order_with_states
 from .states import State, StateTracker, has_states, leg_extra
@@ -205,11 +205,11 @@ def _rounded_leg(
     """
     res = settings.resolution
     rounded = round_to_resolution(np.asarray(pts, dtype=float), res)
-    inner = np.array([
-        [np.ceil(travel.xmin / res - 1e-9), np.ceil(travel.ymin / res - 1e-9)],
-        [np.floor(travel.xmax / res + 1e-9), np.floor(travel.ymax / res + 1e-9)],
-    ]) * res
-    lo, hi = round_to_resolution(inner, res)
+    try:  # the grid values inside travel, found on the very grid the file is written on
+        lo, hi = grid_inside([travel.xmin, travel.ymin], [travel.xmax, travel.ymax], res)
+    except ValueError as exc:
+        raise PlanningError(f"travel is narrower than the output resolution: {exc} (fix: "
+                            "widen travel, or set a finer resolution)") from None
     rounded = np.clip(rounded, lo, hi)
     keep = np.ones(len(rounded), dtype=bool)
     keep[1:] = np.any(rounded[1:] != rounded[:-1], axis=1)

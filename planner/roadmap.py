@@ -36,6 +36,8 @@ _NOISE = 1e-12
 
 # Query points handled per pass: a bound on the (points x corners) arrays, not on the result.
 _SIGHT_CHUNK = 16
+# A leg's search first goes this many times as far as the straight move (speed only).
+_SEARCH_LIMITS = (1.5, 6.0, np.inf)
 # The occlusion filter: disks centred on a grid of about this many points over the box, at most
 # this many of them (speed only: the filter never decides that a segment is visible).
 _DISK_GRID = 8192
@@ -149,6 +151,10 @@ class Roadmap:
     _disk_r: np.ndarray
     _sight_cache: dict = field(default_factory=dict)
     _cost_graphs: dict = field(default_factory=dict)  # EdgeCost -> graph weighted by it
+
+    def clear_cache(self) -> None:
+        """Forget what end points were seen from (memory; cold-query timings)."""
+        self._sight_cache.clear()
 
     # -- visibility ---------------------------------------------------------------------------
 
@@ -295,10 +301,11 @@ class Roadmap:
             self._cost_graphs[cost] = csr_matrix((w, (g.row, g.col)), shape=g.shape)
         return self._cost_graphs[cost]
 
-    def _search(self, a: np.ndarray, cost: EdgeCost | None = None
+    def _search(self, a: np.ndarray, cost: EdgeCost | None = None, limit: float = np.inf
                 ) -> tuple[np.ndarray, np.ndarray]:
         """Dijkstra from free point a over the graph plus a's own edges: distances and
-        predecessors for every node (index N stands for a)."""
+        predecessors for every node (index N stands for a); nodes farther than `limit` are
+        left at inf (exact for every node within it)."""
         (a_nodes, a_dist), = self._sight(a.reshape(1, 2))
         a_dist = self._cost(self.nodes[a_nodes] - a, a_dist, cost)
         g = self._graph_for(cost)
@@ -308,7 +315,8 @@ class Roadmap:
             (np.concatenate([g.data, a_dist]), np.concatenate([g.indices, a_nodes]), indptr),
             shape=(n + 1, n + 1),
         )
-        dist, pred = dijkstra(aug, directed=True, indices=n, return_predecessors=True)
+        dist, pred = dijkstra(aug, directed=True, indices=n, return_predecessors=True,
+                              limit=limit)
         return dist, pred
 
     def _finish(self, a: np.ndarray, targets: np.ndarray, dist: np.ndarray,
@@ -360,9 +368,17 @@ class Roadmap:
             return np.vstack([pa, pb]), 0.0
         if self.visible(pa, pb)[0]:
             return np.vstack([pa, pb]), float(np.hypot(*(pb - pa)))
-        self._sight(np.vstack([pa, pb]))  # one walk for both ends
-        dist, pred = self._search(pa, cost)
-        best, via = self._finish(pa, pb.reshape(1, 2), dist, cost)
+        self._sight(np.vstack([pa, pb]))  # both ends in one pass
+        # Search only as far as a few times the straight move first: a best cost within the
+        # limit is exact (every node on that path is within it); otherwise search further.
+        straight = float(self._cost((pb - pa).reshape(1, 2), np.hypot(*(pb - pa)).reshape(1),
+                                    cost)[0])
+        for factor in _SEARCH_LIMITS:
+            limit = straight * factor
+            dist, pred = self._search(pa, cost, limit)
+            best, via = self._finish(pa, pb.reshape(1, 2), dist, cost)
+            if best[0] <= limit:
+                break
         if not np.isfinite(best[0]):
             raise NoPath("disconnected", a, b)
         return self._polyline(pa, pb, int(via[0]), pred)

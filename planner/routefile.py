@@ -23,6 +23,7 @@ __all__ = [
     "RouteFileError",
     "decimals_for",
     "round_to_resolution",
+    "grid_inside",
     "dump_route",
     "load_route",
 ]
@@ -101,6 +102,28 @@ def round_to_resolution(points: np.ndarray, resolution: float) -> np.ndarray:
     ticks, decimals = _ticks(points, resolution)
     # correctly rounded: the same double as float("<decimal>"); + 0.0 turns -0.0 into 0.0
     return ticks / 10.0**decimals + 0.0
+
+
+def grid_inside(lo: np.ndarray, hi: np.ndarray, resolution: float
+                ) -> tuple[np.ndarray, np.ndarray]:
+    """Per axis, the smallest and largest values of the output grid within [lo, hi] (closed).
+
+    A limit that is not on the grid is replaced by the nearest grid value inside it, so that
+    rounded points clipped to these stay within the limits. ValueError when an axis is narrower
+    than one step of the grid and holds none of its values.
+    """
+    decimals, multiple = _grid(resolution)
+    lo = np.asarray(lo, dtype=float)
+    hi = np.asarray(hi, dtype=float)
+    scale = 10.0**decimals
+    t_lo, _ = _ticks(lo, resolution)
+    t_hi, _ = _ticks(hi, resolution)
+    t_lo = np.where(t_lo / scale + 0.0 < lo, t_lo + multiple, t_lo)
+    t_hi = np.where(t_hi / scale + 0.0 > hi, t_hi - multiple, t_hi)
+    if np.any(t_lo > t_hi):
+        raise ValueError(f"the limits {lo.tolist()} to {hi.tolist()} hold no point of the "
+                         f"output grid (resolution {resolution:g})")
+    return t_lo / scale + 0.0, t_hi / scale + 0.0
 
 
 def _fixed(tick: float, decimals: int) -> str:

@@ -206,6 +206,7 @@ def _scene(value: Any, file: str, sha256: str, settings: Settings) -> Scene:
 
     units = value.get("units", "mm")
     travel = _travel(value["travel"])
+    _travel_on_grid(travel, settings.in_units(units).resolution, units)
     targets = _targets(value["targets"], rings)
     ids = [t.id for t in targets]
     obstacles = _obstacles(value.get("obstacles", []), rings, set(ids))
@@ -309,6 +310,20 @@ def _travel(value: dict) -> Travel:
                           f"got [{lo:g}, {hi:g}]", hint)
     (x0, x1), (y0, y1) = value["x"], value["y"]
     return Travel(float(x0), float(x1), float(y0), float(y1))
+
+
+def _travel_on_grid(travel: Travel, resolution: float, units: str) -> None:
+    """Route points are rounded to the output grid: travel must hold some of its points, and its
+    numbers must be small enough to be written at that resolution."""
+    from .routefile import grid_inside
+
+    try:
+        grid_inside([travel.xmin, travel.ymin], [travel.xmax, travel.ymax], resolution)
+    except ValueError as exc:
+        raise Problem(("travel",), f"travel cannot hold route points at the output resolution "
+                      f"of {resolution:g} {units}: {exc}",
+                      "widen travel (check the units), or change resolution in "
+                      "config/planner.yaml") from None
 
 
 def _inside(travel: Travel, p: Point, path: Path_, what: str) -> None:

@@ -7,7 +7,8 @@ when it is cheaper. The work is a fixed number of kicks, so the same matrix give
 on every machine; a wall-clock budget only caps pathological sizes. Targets pinned `first` or
 `last` and `after:` precedence constraints are kept by every move.
 
-Costs may be asymmetric. Unreachable targets are not ordered here: the caller leaves them out.
+Costs may be asymmetric. `scene_order` builds the matrix from a road map (one single-source
+search per point) and leaves out the targets the start cannot reach.
 """
 
 from __future__ import annotations
@@ -18,13 +19,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .model import FINISH, START, Scene, Target
+from .model import Scene, Target
 from .roadmap import EdgeCost, NoPath, Roadmap
 
 __all__ = [
-    "OrderProblem",
     "Precedence",
-    "order_problems",
     "precedence_of",
     "shortest_order",
     "order_cost",
@@ -37,16 +36,6 @@ _FIRST, _NORMAL, _LAST = 0, 1, 2
 _SEED = 20240611  # fixed: the same matrix always gets the same order
 _BATCH = 16  # marked nodes looked at together by the local search
 _NEIGHBOURS = 10  # candidate new edges per node: to its cheapest few others
-
-
-@dataclass(frozen=True)
-class OrderProblem:
-    """A contradictory or violated ordering constraint on target `index` (position in the scene)."""
-
-    index: int
-    field: str  # "after" | "first" | "last"
-    message: str
-    hint: str
 
 
 @dataclass(frozen=True)
@@ -81,8 +70,8 @@ class Precedence:
 
 
 def precedence_of(targets: Sequence[Target]) -> Precedence:
-    """The scene's pins and `after:` constraints as a Precedence (unknown names are ignored:
-    `order_problems` reports them)."""
+    """The scene's pins and `after:` constraints as a Precedence (the scene loader has already
+    refused unknown names, cycles and contradictions; unknown names are ignored here)."""
     index = {t.id: k for k, t in enumerate(targets)}
     level = tuple(_FIRST if t.first else _LAST if t.last else _NORMAL for t in targets)
     before = tuple(
@@ -91,100 +80,6 @@ def precedence_of(targets: Sequence[Target]) -> Precedence:
         if t.after is not None and t.after in index and index[t.after] != k
     )
     return Precedence(level=level, before=before)
-
-
-def order_problems(targets: Sequence[Target], sequence: str) -> list[OrderProblem]:
-    """Every contradictory (`shortest`) or also violated (`given`) ordering constraint."""
-    problems: list[OrderProblem] = []
-    index = {t.id: k for k, t in enumerate(targets)}
-    n = len(targets)
-    for k, t in enumerate(targets):
-        if t.first and t.last and n > 1:
-            problems.append(OrderProblem(k, "last", f"target {t.id} is pinned both first and last",
-                                         "keep one of first: true and last: true"))
-        if t.after is None or t.after == START:
-            continue
-        if t.after == FINISH:
-            problems.append(OrderProblem(k, "after", "after: finish can never be met",
-                                         "name a target (or start) that must come before it"))
-        elif t.after not in index:
-            problems.append(OrderProblem(k, "after", f"after names no target {t.after!r}",
-                                         "use the id of a target of this scene"))
-        elif t.after == t.id:
-            problems.append(OrderProblem(k, "after", f"target {t.id} is after itself",
-                                         "name another target, or remove after"))
-    if problems:
-        return problems
-
-    prec = precedence_of(targets)
-    names = ("first", "unpinned", "last")
-    for a, b in prec.before:
-        if prec.level[a] > prec.level[b]:
-            problems.append(OrderProblem(
-                b, "after",
-                f"target {targets[b].id} ({names[prec.level[b]]}) must come after "
-                f"{targets[a].id} ({names[prec.level[a]]}): the pins contradict this",
-                "remove the pin or the after constraint",
-            ))
-    cycle = _find_cycle(n, prec.before)
-    if cycle:
-        ids = " -> ".join(targets[k].id for k in [*cycle, cycle[0]])
-        problems.append(OrderProblem(cycle[0], "after",
-                                     f"the after constraints form a cycle: {ids}",
-                                     "remove one after constraint of the cycle"))
-    if problems or sequence != "given":
-        return problems
-
-    for a, b in prec.before:
-        if a > b:
-            problems.append(OrderProblem(
-                b, "after",
-                f"target {targets[b].id} comes before {targets[a].id} in the given order but must "
-                "be visited after it",
-                f"list {targets[b].id} after {targets[a].id}, or use sequence: shortest",
-            ))
-    for k in range(1, n):
-        if prec.level[k] < prec.level[k - 1]:
-            pinned = k if prec.level[k] == _FIRST else k - 1
-            field = "first" if prec.level[k] == _FIRST else "last"
-            problems.append(OrderProblem(
-                pinned, field,
-                f"target {targets[pinned].id} is pinned {field} but is not {field} in the given "
-                "order",
-                f"move it to the {'top' if field == 'first' else 'end'} of the list, or use "
-                "sequence: shortest",
-            ))
-    return problems
-
-
-def _find_cycle(n: int, edges: Sequence[tuple[int, int]]) -> list[int]:
-    """One directed cycle among `edges` over 0..n-1 (in order), or [] when there is none."""
-    succ: list[list[int]] = [[] for _ in range(n)]
-    for a, b in edges:
-        succ[a].append(b)
-    state = [0] * n  # 0 new, 1 on the stack, 2 done
-    for root in range(n):
-        if state[root]:
-            continue
-        stack = [(root, 0)]
-        path = [root]
-        state[root] = 1
-        while stack:
-            node, i = stack[-1]
-            if i < len(succ[node]):
-                stack[-1] = (node, i + 1)
-                nxt = succ[node][i]
-                if state[nxt] == 1:
-                    return path[path.index(nxt):]
-                if state[nxt] == 0:
-                    state[nxt] = 1
-                    stack.append((nxt, 0))
-                    path.append(nxt)
-            else:
-                state[node] = 2
-                stack.pop()
-                path.pop()
-    return []
 
 
 def order_cost(cost: np.ndarray, order: Sequence[int], has_finish: bool) -> float:
@@ -364,6 +259,8 @@ class _TourSearch:
         current = 0
         for _ in range(n):
             open_ = ~visited & (waiting == 0)
+            if not open_.any():
+                raise ValueError("the ordering constraints contradict each other (a cycle)")
             lowest = self.level[open_].min()
             allowed = np.flatnonzero(open_ & (self.level == lowest))
             nxt = int(allowed[np.argmin(self.c[current, allowed])])

@@ -21,7 +21,6 @@ from planner.scene import load_scene_bytes
 from planner.sequence import (
     Precedence,
     order_cost,
-    order_problems,
     precedence_of,
     shortest_order,
 )
@@ -231,29 +230,6 @@ def test_precedence_of_scene_targets():
     assert prec.level == (1, 1, 0, 2)
     assert prec.before == ((2, 1),)
     assert prec.restricted([1, 2]).before == ((1, 0),)
-    assert order_problems(ts, "shortest") == []
-
-
-def test_contradictions_are_reported():
-    cyc = order_problems(targets(("a", {"after": "c"}), ("b", {"after": "a"}),
-                                 ("c", {"after": "b"})), "shortest")
-    assert len(cyc) == 1 and "cycle" in cyc[0].message and cyc[0].field == "after"
-    pin = order_problems(targets(("a", {}), ("b", {"first": True, "after": "a"})), "shortest")
-    assert pin and pin[0].index == 1 and "pins contradict" in pin[0].message
-    unknown = order_problems(targets(("a", {"after": "zz"})), "shortest")
-    assert unknown[0].field == "after" and "zz" in unknown[0].message
-    both = order_problems(targets(("a", {"first": True, "last": True}), ("b", {})), "shortest")
-    assert both[0].field == "last"
-
-
-def test_given_order_must_already_satisfy_the_constraints():
-    late = targets(("a", {"after": "b"}), ("b", {}))
-    assert order_problems(late, "shortest") == []
-    given_problems = order_problems(late, "given")
-    assert given_problems and given_problems[0].index == 0
-    pinned = targets(("a", {}), ("b", {"first": True}))
-    assert order_problems(pinned, "given")[0].field == "first"
-    assert order_problems(targets(("a", {"first": True}), ("b", {})), "given") == []
 
 
 # ---- through the pipeline: `sequence: shortest` in plan_scene and `sidestep check`

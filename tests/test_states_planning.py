@@ -10,6 +10,7 @@ the part that just appeared) is caught by it.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import replace
 
@@ -17,8 +18,7 @@ import networkx as nx
 import numpy as np
 import pytest
 import shapely
-import yaml
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from planner.config import load_settings
@@ -38,7 +38,7 @@ OUTLINES = ([[-6, -1], [6, -1], [6, 1], [-6, 1]], [[-1, -5], [1, -5], [1, 5], [-
 
 
 def load(data: dict):
-    return load_scene_bytes(yaml.safe_dump(data, sort_keys=False).encode(), "s.yaml", SETTINGS)
+    return load_scene_bytes(json.dumps(data).encode(), "s.json", SETTINGS)
 
 
 def reference_length(region: shapely.Geometry, a, b) -> float:
@@ -152,13 +152,17 @@ def stateful_scene_dicts(draw):
     }
 
 
-@settings(max_examples=30, deadline=None,
+@settings(max_examples=80, deadline=None,
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 @given(stateful_scene_dicts())
 def test_each_leg_matches_a_static_plan_of_its_own_state(data):
     scene = load(data)
     result = plan_scene(scene, SETTINGS)
     check_route_against_references(scene, result.route)
+    event(f"{len(result.route.legs)} legs planned")
+    event("some leg bends" if any(len(leg.points) > 2 for leg in result.route.legs)
+          else "all legs straight")
+    event("state changes" if len({s.key for s in result.leg_states}) > 1 else "one state")
 
 
 def test_leg_states_and_route_fields_follow_the_contract():

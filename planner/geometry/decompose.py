@@ -226,9 +226,11 @@ def convex_decomposition(
     polys = np.asarray(polygons, dtype=object)
     exteriors = drop_collinear(orient_ccw(Rings.from_polygons(polys)))
     has_holes = shapely.get_num_interior_rings(polys) > 0
-    convex = convex_mask(exteriors) & ~has_holes
+    # a sliver whose ring is flat up to rounding noise (fewer than 3 vertices left) is taken
+    # whole: its hull contains it, so it is grown as a thin convex piece, never dropped
+    convex = (convex_mask(exteriors) | (exteriors.sizes < 3)) & ~has_holes
 
-    whole, kept = canonical_convex(exteriors.select(convex).to_polygons())
+    whole, kept = canonical_convex(polys[convex])
     parts = [whole]
     owners = [np.flatnonzero(convex)[kept]]
 

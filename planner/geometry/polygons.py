@@ -110,9 +110,16 @@ class Rings:
         return Rings.from_index(self.coords[keep], self.ring_of()[keep], len(self))
 
     def to_polygons(self) -> np.ndarray:
-        """One shapely Polygon per ring (array of objects)."""
+        """One shapely Polygon per ring (array of objects); an empty one for a ring of fewer
+        than 3 vertices (left by dropping flat vertices of a sliver: it has no area)."""
         if len(self) == 0:
             return np.empty(0, dtype=object)
+        small = self.sizes < 3
+        if small.any():
+            out = np.full(len(self), shapely.Polygon(), dtype=object)
+            if not small.all():
+                out[~small] = self.select(~small).to_polygons()
+            return out
         rings = shapely.linearrings(self.coords, indices=self.ring_of())
         return shapely.polygons(rings)
 

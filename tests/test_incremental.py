@@ -1,0 +1,160 @@
+"""Incremental configuration spaces against from-scratch builds, after every change.
+
+On hypothesis-generated sequences of obstacle insertions and removals, the state a
+FootprintSpace derives must hold the same free space as build_free_space from scratch (the
+symmetric difference, measured by GEOS, has no area beyond floating-point noise) and the same
+road map as build_roadmap (the same corners and edges, and shortest paths of the same length),
+and its triangulation must tile the free space exactly (triangle areas summing to the region's).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import shapely
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from planner.config import load_settings
+from planner.cspace import build_free_space
+from planner.incremental import FootprintSpace, StateRoadmap
+from planner.model import Circle, Head, Obstacle, Scene, Target, Travel
+from planner.roadmap import NoPath, build_roadmap
+from tests.helpers import REPO_CONFIG
+
+SETTINGS = load_settings(REPO_CONFIG)
+FOOTPRINTS = {
+    "square": ((-3.0, -3.0), (3.0, -3.0), (3.0, 3.0), (-3.0, 3.0)),
+    "u-shape": ((-4.0, -3.0), (4.0, -3.0), (4.0, 3.0), (2.0, 3.0), (2.0, -1.0), (-2.0, -1.0),
+                (-2.0, 3.0), (-4.0, 3.0)),
+}
+
+coord = st.floats(8.0, 192.0, allow_nan=False).map(lambda v: round(v, 3))
+
+
+@st.composite
+def obstacles(draw, k: int):
+    kind = draw(st.sampled_from(["rect", "rect", "star", "circle"]))
+    cx, cy = draw(coord), draw(coord)
+    size = draw(st.floats(3.0, 25.0))
+    if kind == "circle":
+        return Obstacle(f"o{k}", circle=Circle((cx, cy), round(size / 2, 3)))
+    if kind == "rect":
+        w, h = size, draw(st.floats(3.0, 25.0))
+        ring = ((cx, cy), (cx + w, cy), (cx + w, cy + h), (cx, cy + h))
+        return Obstacle(f"o{k}", polygon=tuple((round(x, 3), round(y, 3)) for x, y in ring))
+    n = draw(st.integers(5, 9))
+    radii = np.array(draw(st.lists(st.floats(0.35, 1.0), min_size=n, max_size=n))) * size
+    angles = 2 * np.pi * np.arange(n) / n + draw(st.floats(0, 1))
+    ring = np.round(np.c_[cx + radii * np.cos(angles), cy + radii * np.sin(angles)], 3)
+    poly = shapely.Polygon(ring)
+    if not poly.is_valid or poly.area < 1.0:
+        ring = np.round(shapely.get_coordinates(shapely.convex_hull(shapely.MultiPoint(ring))
+                                                )[:-1], 3)
+    return Obstacle(f"o{k}", polygon=tuple(map(tuple, ring.tolist())))
+
+
+@st.composite
+def change_sequences(draw):
+    n = draw(st.integers(3, 9))
+    obs = [draw(obstacles(k + 1)) for k in range(n)]
+    present = set(draw(st.sets(st.integers(0, n - 1), max_size=n)))
+    steps = []
+    for _ in range(draw(st.integers(2, 7))):
+        if present and draw(st.booleans()):
+            present = present - set(draw(st.sets(st.sampled_from(sorted(present)), min_size=1,
+                                                 max_size=2)))
+        else:
+            present = present | set(draw(st.sets(st.integers(0, n - 1), min_size=1, max_size=2)))
+        steps.append(frozenset(present))
+    points = [(draw(coord), draw(coord)) for _ in range(4)]
+    return obs, steps, points, draw(st.sampled_from(sorted(FOOTPRINTS)))
+
+
+def scene_of(obs, footprint) -> Scene:
+    return Scene(file="s.yaml", sha256="0" * 64, units="mm", travel=Travel(0, 200, 0, 200),
+                 head=Head(None, footprint, 1.0), obstacles=tuple(obs), start=(1.0, 1.0),
+                 targets=(Target("t1", (2.0, 2.0)),))
+
+
+def length_or_kind(roadmap, a, b):
+    try:
+        return roadmap.path(a, b)[1]
+    except NoPath as err:
+        return err.kind
+
+
+def assert_same_as_from_scratch(space: FootprintSpace, present: frozenset, scene, points):
+    st_ = space.state(present)
+    obs = [space.obstacles[i] for i in sorted(present)]
+    free = build_free_space(scene, SETTINGS, obstacles=obs)
+    roadmap = build_roadmap(free)
+    # GEOS: the two free spaces cover the same ground (area of the symmetric difference ~ 0)
+    assert shapely.symmetric_difference(free.blocked, st_.free.blocked).area <= 1e-9
+    assert shapely.symmetric_difference(free.region, st_.free.region).area <= 1e-9
+    # the triangulation tiles the free region: its triangles' areas add up to the region's
+    tri = st_.roadmap._tri
+    assert math.isclose(float(shapely.area(tri.polygons).sum()), st_.free.region.area,
+                        rel_tol=1e-9, abs_tol=1e-9)
+    # the same corners and the same visibility graph
+    assert np.array_equal(np.sort(st_.roadmap.nodes.view(complex).ravel()),
+                          np.sort(roadmap.nodes.view(complex).ravel()))
+    assert st_.roadmap.graph.nnz == roadmap.graph.nnz
+    for a in points:
+        for b in points:
+            la, lb = length_or_kind(st_.roadmap, a, b), length_or_kind(roadmap, a, b)
+            if isinstance(la, str) or isinstance(lb, str):
+                assert la == lb
+            else:
+                assert la == pytest.approx(lb, rel=1e-9, abs=1e-9)
+
+
+@settings(max_examples=40, deadline=None,
+          suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
+@given(change_sequences())
+def test_every_insertion_and_removal_matches_a_build_from_scratch(case):
+    obs, steps, points, fp_name = case
+    scene = scene_of(obs, FOOTPRINTS[fp_name])
+    space = FootprintSpace(scene, SETTINGS, scene.head.footprint, obs, keep=2)
+    for present in steps:
+        assert_same_as_from_scratch(space, present, scene, points)
+    assert space.stats["derived"] >= 1 or len(set(steps)) == 1
+    assert "out_of_step" not in space.stats
+
+
+def test_a_removal_opens_sight_lines_far_from_the_obstacle_that_went():
+    # two walls with a post between their ends: with the post, the corners at the far ends do
+    # not see each other; without it, a straight line joins them across the post's place
+    obs = [
+        Obstacle("wall-a", polygon=((20, 90), (90, 90), (90, 110), (20, 110))),
+        Obstacle("wall-b", polygon=((110, 90), (180, 90), (180, 110), (110, 110))),
+        Obstacle("post", polygon=((95, 95), (105, 95), (105, 105), (95, 105))),
+    ]
+    scene = scene_of(obs, FOOTPRINTS["square"])
+    space = FootprintSpace(scene, SETTINGS, scene.head.footprint, obs, keep=2)
+    points = [(100.0, 60.0), (100.0, 140.0), (10.0, 100.0), (190.0, 100.0)]
+    assert_same_as_from_scratch(space, frozenset({0, 1, 2}), scene, points)
+    assert_same_as_from_scratch(space, frozenset({0, 1}), scene, points)
+    assert space.stats["derived"] == 1
+
+
+def test_a_derived_state_sees_what_a_fresh_road_map_sees():
+    obs = [Obstacle(f"p{k}", polygon=((20 + 30 * k, 80), (40 + 30 * k, 80), (40 + 30 * k, 120),
+                                      (20 + 30 * k, 120))) for k in range(5)]
+    scene = scene_of(obs, FOOTPRINTS["u-shape"])
+    space = FootprintSpace(scene, SETTINGS, scene.head.footprint, obs, keep=2)
+    pts = np.array([[10.0, 10.0], [190.0, 190.0], [100.0, 60.0], [75.0, 150.0]])
+    first = space.state(frozenset({0, 1}))
+    first.roadmap.distances_from(tuple(pts[0]), pts[1:])  # fills its sight cache
+    second = space.state(frozenset({0, 1, 2}))  # one part added: sights are derived
+    assert isinstance(second.roadmap, StateRoadmap) and second.roadmap._source is not None
+    fresh = build_roadmap(build_free_space(scene, SETTINGS, obstacles=obs[:3]))
+    derived = second.roadmap._sight(pts)
+    walked = fresh._sight(pts)
+    for (dn, dd), (fn, fd) in zip(derived, walked, strict=True):
+        a = sorted(map(tuple, second.roadmap.nodes[dn]))
+        b = sorted(map(tuple, fresh.nodes[fn]))
+        assert a == b
+        assert sorted(dd) == pytest.approx(sorted(fd))
