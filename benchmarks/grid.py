@@ -1,4 +1,4 @@
-"""The baseline a practitioner would pick instead of exact paths: a raster grid and a least-cost path.
+"""The practitioner's alternative to exact paths: a raster grid and a least-cost path.
 
 The grown obstacles (our configuration space, so both planners avoid the same shapes) are
 rasterised at `cell` (1 mm by default) by cell centres, then dilated by one cell so that a path

@@ -46,14 +46,20 @@ def _key_ids(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 # GEOS joins a polygon's holes to its shell before triangulating, at a cost that grows with
 # holes times vertices; cutting a polygon with many holes into cells first keeps that low.
 _HOLES_PER_CELL = 2
+# Ear clipping and the joining also grow with the square of a part's vertex count (one finely
+# drawn arc is enough): a part with many vertices is cut into cells of about this many.
+_VERTICES_PER_CELL = 4096
 
 
 def _cells(part: shapely.Polygon) -> tuple[list[shapely.Geometry], np.ndarray, np.ndarray]:
-    """The part cut by a grid into cells holding a few holes each, and the grid's cut lines."""
+    """The part cut by a grid into cells holding a few holes (and not too many vertices) each,
+    and the grid's cut lines."""
     holes = shapely.get_num_interior_rings(part)
+    vertices = shapely.get_num_coordinates(part)
     x0, y0, x1, y1 = part.bounds
-    n = -(-holes // _HOLES_PER_CELL)
-    if holes <= 2 * _HOLES_PER_CELL or x1 <= x0 or y1 <= y0:
+    n = max(-(-holes // _HOLES_PER_CELL), -(-vertices // _VERTICES_PER_CELL))
+    light = holes <= 2 * _HOLES_PER_CELL and vertices <= 2 * _VERTICES_PER_CELL
+    if light or x1 <= x0 or y1 <= y0:
         return [part], np.empty(0), np.empty(0)
     nx = max(1, round(np.sqrt(n * (x1 - x0) / (y1 - y0))))
     ny = max(1, -(-n // nx))

@@ -32,15 +32,7 @@ import numpy as np
 import shapely
 from scipy.sparse import csr_matrix
 
-from ._visibility import (
-    _build,
-    _CutMismatch,
-    _triangles,
-    node_windows,
-    point_windows,
-    triangulate,
-    walk,
-)
+from ._visibility import Triangulation, node_windows, point_windows, triangulate, walk
 from .config import Settings
 from .cspace import (
     EPS_PER_RESOLUTION,
@@ -53,6 +45,7 @@ from .cspace import (
 from .model import Obstacle, Ring, Scene
 from .roadmap import Roadmap, build_roadmap, reflex_corners
 from .states import State, footprint_of, present_obstacles
+from .tiles import TileGrid, TileMesh, TileMismatch, assemble, tile_mesh, vertex_ids
 
 __all__ = ["LegSpace", "StateSpaces", "FootprintSpace", "StateSpace", "StateRoadmap"]
 
@@ -61,6 +54,9 @@ __all__ = ["LegSpace", "StateSpaces", "FootprintSpace", "StateSpace", "StateRoad
 # scenes (benchmarks/states_bench.py), where a few hundred per tile did best.
 _VERTICES_PER_TILE = 400
 _MAX_TILES_PER_AXIS = 64
+_MAX_DISKS = 1024  # occlusion disks per road map, the largest (a filter only)
+_DISK_BLOCK = 64  # disks tested together by the occlusion filter (bounds array sizes only)
+_PAIR_CHUNK = 16  # source corners tested together against every corner (array sizes only)
 # A derived state that changes more than this share of the obstacles is built whole instead.
 _REBUILD_SHARE = 0.5
 
@@ -124,42 +120,16 @@ class _SightSource:
 
     cache: dict
     child_of_parent: np.ndarray  # parent node -> child node, -1 where it changed
-    added: shapely.STRtree  # boxes around the added obstacles (grown, padded)
+    added: np.ndarray  # (k, 4) boxes around the added obstacles (grown, padded)
     touched: np.ndarray  # child nodes near a change
     node_vertex: np.ndarray  # child node -> triangulation vertex
 
 
 @dataclass(eq=False)
 class StateRoadmap(Roadmap):
-    """A road map derived from another state's: the same queries, with sights derived.
-
-    Its cheap occlusion filter is the state's grown pieces shrunk by eps (each lies inside
-    `blocked` shrunk by eps, so a segment meeting one is certainly not visible)."""
+    """A road map derived from another state's: the same queries, with sights derived."""
 
     _source: _SightSource | None = None
-    _occluders: shapely.STRtree | None = None
-
-    def _occluded(self, p: np.ndarray, q: np.ndarray) -> np.ndarray:
-        out = np.zeros(len(p), dtype=bool)
-        if self._occluders is None or len(p) == 0:
-            return out
-        moving = np.any(p != q, axis=1)
-        idx = np.flatnonzero(moving)
-        lines = shapely.linestrings(np.stack([p[idx], q[idx]], axis=1))
-        out[idx[np.unique(self._occluders.query(lines, predicate="intersects")[0])]] = True
-        return out
-
-    def _sight(self, pts: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
-        src = self._source
-        if src is not None:
-            todo = []
-            for x, y in pts:
-                k = (float(x), float(y))
-                if k not in self._sight_cache and k in src.cache:
-                    todo.append(k)
-            for k in dict.fromkeys(todo):
-                self._sight_cache[k] = self._derived_sight(np.array(k), src)
-        return super()._sight(pts)
 
     def _derived_sight(self, p: np.ndarray, src: _SightSource) -> tuple[np.ndarray, np.ndarray]:
         nodes_p, dist_p = src.cache[(float(p[0]), float(p[1]))]
@@ -167,9 +137,8 @@ class StateRoadmap(Roadmap):
         keep = child >= 0
         child, dist = child[keep], dist_p[keep]
         if len(child):
-            lines = shapely.linestrings(np.stack(
-                [np.broadcast_to(p, (len(child), 2)), self.nodes[child]], axis=1))
-            near = np.unique(src.added.query(lines, predicate="intersects")[0])
+            near = np.flatnonzero(_segments_near(np.broadcast_to(p, (len(child), 2)),
+                                                 self.nodes[child], src.added))
             if len(near):
                 ok = np.ones(len(child), dtype=bool)
                 ok[near] = self.visible(np.broadcast_to(p, (len(near), 2)), self.nodes[child[near]])
@@ -209,9 +178,22 @@ def _expand(bounds: np.ndarray, pad: float) -> np.ndarray:
     return b
 
 
-def _boxes(bounds: np.ndarray) -> np.ndarray:
-    b = np.asarray(bounds, dtype=float).reshape(-1, 4)
-    return shapely.box(b[:, 0], b[:, 1], b[:, 2], b[:, 3])
+def _in_boxes(xy: np.ndarray, boxes: np.ndarray) -> np.ndarray:
+    """Points inside (or on) any of the boxes (k, 4)."""
+    out = np.zeros(len(xy), dtype=bool)
+    for x0, y0, x1, y1 in boxes:
+        out |= (xy[:, 0] >= x0) & (xy[:, 0] <= x1) & (xy[:, 1] >= y0) & (xy[:, 1] <= y1)
+    return out
+
+
+def _segments_near(p: np.ndarray, q: np.ndarray, boxes: np.ndarray) -> np.ndarray:
+    """Segments p-q whose bounding box meets any of the boxes (a superset of those that meet
+    a box: the exact test decides)."""
+    lo, hi = np.minimum(p, q), np.maximum(p, q)
+    out = np.zeros(len(p), dtype=bool)
+    for x0, y0, x1, y1 in boxes:
+        out |= (lo[:, 0] <= x1) & (hi[:, 0] >= x0) & (lo[:, 1] <= y1) & (hi[:, 1] >= y0)
+    return out
 
 
 def _match(old: np.ndarray, new: np.ndarray) -> np.ndarray:
@@ -292,7 +274,8 @@ class FootprintSpace:
             for a, b in zip(self._ptr[:-1], self._ptr[1:], strict=True)
         ]).reshape(-1, 4)
         self._grown: dict[int, shapely.Geometry] = {}
-        self._occluders: dict[int, np.ndarray] = {}
+        self._disk_xy: np.ndarray | None = None
+        self._disk_r: np.ndarray | None = None
         self._clusters: dict[frozenset[int], _Cluster] = {}
         self._tile_cache: dict[tuple, np.ndarray] = {}
         self._states: OrderedDict[frozenset[int], StateSpace] = OrderedDict()
@@ -311,20 +294,29 @@ class FootprintSpace:
             g = self._grown[i] = checked_union(self.pieces_of(i), self.eps)
         return g
 
-    def _occluders_of(self, i: int) -> np.ndarray:
-        occ = self._occluders.get(i)
-        if occ is None:
-            occ = self._occluders[i] = shapely.buffer(self.pieces_of(i), -self.eps,
-                                                      join_style="mitre")
-        return occ
+    def _disks(self, members: Sequence[int]) -> tuple[np.ndarray, np.ndarray]:
+        """Disks inside the members' pieces shrunk by eps, largest first (at most _MAX_DISKS)."""
+        if self._disk_r is None:
+            self._disk_xy, self._disk_r = _inscribed_disks(self._pieces, self.eps,
+                                                           self.diameter)
+        if not len(members):
+            return np.empty((0, 2)), np.empty(0)
+        idx = np.concatenate([np.arange(self._ptr[i], self._ptr[i + 1]) for i in members])
+        idx = idx[self._disk_r[idx] > 0]
+        idx = idx[np.argsort(-self._disk_r[idx], kind="stable")[:_MAX_DISKS]]
+        return self._disk_xy[idx], self._disk_r[idx]
 
-    def _cluster(self, key: frozenset[int]) -> _Cluster:
+    def _cluster(self, key: frozenset[int], parts: Sequence[np.ndarray] | None = None
+                 ) -> _Cluster:
+        """The cluster of these members (cached): the union of `parts` (unchanged clusters'
+        unions and new members' pieces; default: every member's pieces). Uniting with the
+        unions already made leaves their vertices where they were, away from the new pieces."""
         cl = self._clusters.get(key)
         if cl is not None:
             return cl
-        members = sorted(key)
-        pieces = np.concatenate([self.pieces_of(i) for i in members])
-        geom = checked_union(pieces, self.eps)
+        if parts is None:
+            parts = [self.pieces_of(i) for i in sorted(key)]
+        geom = checked_union(np.concatenate(parts), self.eps)
         shapely.prepare(geom)
         shrunk = geom.buffer(-self.eps, join_style="mitre")
         corners = reflex_corners(shapely.difference(self.box, geom))
@@ -366,41 +358,41 @@ class FootprintSpace:
                 out.append(kept[items[0]])
                 continue
             key: set[int] = set()
+            parts: list[np.ndarray] = []
             for i in items:
-                key |= kept[i].key if i < k else {loose_list[i - k]}
-            out.append(self._cluster(frozenset(key)))
+                if i < k:
+                    key |= kept[i].key
+                    parts.append(np.array([kept[i].geom], dtype=object))
+                else:
+                    key.add(loose_list[i - k])
+                    parts.append(self.pieces_of(loose_list[i - k]))
+            out.append(self._cluster(frozenset(key), parts))
         return tuple(sorted(out, key=lambda c: min(c.key)))
 
     # -- tiles ------------------------------------------------------------------------------------
 
     def _grid(self, vertices: int) -> None:
-        x0, y0, x1, y1 = self.box.bounds
-        n = max(1, vertices // _VERTICES_PER_TILE)
-        nx = int(np.clip(round(np.sqrt(n * (x1 - x0) / (y1 - y0))), 1, _MAX_TILES_PER_AXIS))
-        ny = int(np.clip(-(-n // nx), 1, _MAX_TILES_PER_AXIS))
-        # cut at odd fractions so that no cut line is likely to run along an obstacle edge
-        self.cut_x = x0 + (x1 - x0) * (np.arange(1, nx) + 0.1180339887) / nx
-        self.cut_y = y0 + (y1 - y0) * (np.arange(1, ny) + 0.1180339887) / ny
-        ex, ey = np.r_[x0, self.cut_x, x1], np.r_[y0, self.cut_y, y1]
-        self.tile_bounds = np.array([[ex[i], ey[j], ex[i + 1], ey[j + 1]]
-                                     for i in range(nx) for j in range(ny)])
+        self.grid = TileGrid.over(self.box.bounds, vertices // _VERTICES_PER_TILE,
+                                  _MAX_TILES_PER_AXIS)
+        self.tile_bounds = self.grid.bounds
 
-    def _tile_keys(self, clusters: Sequence[_Cluster]) -> list[tuple]:
+    def _tile_keys(self, present: frozenset[int]) -> list[tuple]:
+        """Per tile, what its part of the free space depends on: the present obstacles whose
+        grown shapes reach into it."""
         tb = self.tile_bounds
-        if not clusters:
+        members = np.array(sorted(present), dtype=np.int64)
+        if len(members) == 0:
             return [(t,) for t in range(len(tb))]
-        cb = np.array([c.bounds for c in clusters])
-        hit = ((cb[None, :, 0] <= tb[:, None, 2]) & (cb[None, :, 2] >= tb[:, None, 0])
-               & (cb[None, :, 1] <= tb[:, None, 3]) & (cb[None, :, 3] >= tb[:, None, 1]))
-        return [(t, *(clusters[j].key for j in np.flatnonzero(hit[t]))) for t in range(len(tb))]
+        ob = self._bounds[members]
+        hit = ((ob[None, :, 0] <= tb[:, None, 2]) & (ob[None, :, 2] >= tb[:, None, 0])
+               & (ob[None, :, 1] <= tb[:, None, 3]) & (ob[None, :, 3] >= tb[:, None, 1]))
+        return [(t, frozenset(members[hit[t]].tolist())) for t in range(len(tb))]
 
-    def _tile_triangles(self, key: tuple, region: shapely.Geometry) -> np.ndarray:
-        tris = self._tile_cache.get(key)
-        if tris is None:
-            x0, y0, x1, y1 = self.tile_bounds[key[0]]
-            part = shapely.clip_by_rect(region, x0, y0, x1, y1)
-            tris = self._tile_cache[key] = _triangles([part])
-        return tris
+    def _tile_mesh(self, key: tuple, region: shapely.Geometry) -> TileMesh:
+        mesh = self._tile_cache.get(key)
+        if mesh is None:
+            mesh = self._tile_cache[key] = tile_mesh(region, self.tile_bounds[key[0]], self.grid)
+        return mesh
 
     def _trim_tiles(self) -> None:
         """Forget tile triangulations no kept state uses (bounded memory)."""
@@ -475,6 +467,10 @@ class FootprintSpace:
         clusters = self._clusters_for(present, parent)
         free = self._free_space(present, clusters)
         timing["clusters"] = time.perf_counter() - t0
+        if parent is None:  # nothing to derive from: the static builder's walk over it all
+            return self._whole(present, clusters, free)
+        added = sorted(present - parent.present)
+        removed = sorted(parent.present - present)
 
         # corners: the clusters' own, side by side
         cxy = [c.corners_xy for c in clusters]
@@ -486,20 +482,29 @@ class FootprintSpace:
         pinch_all = np.concatenate([c.pinch for c in clusters]) if cxy else np.zeros((0, 2))
         points = np.concatenate([c_xy_all, pinch_all])
 
-        # triangulation: tiles, reused where their clusters did not change
+        # a triangulation only where obstacles went (the walks towards their places need one);
+        # after additions the corners alone are the vertices
         t1 = time.perf_counter()
-        keys = self._tile_keys(clusters)
+        keys: list[tuple] = []
         fallback = False
-        try:
-            tris = [self._tile_triangles(k, free.region) for k in keys]
-            tris = np.concatenate(tris) if tris else np.empty(0, dtype=object)
-            tri, ids = _build(tris, points, self.cut_x, self.cut_y)
-        except (shapely.errors.GEOSException, _CutMismatch):
-            tri, ids = triangulate(free.region, points)
-            fallback = True
-            self.stats["fallback_triangulations"] += 1
-            for k in keys:
-                self._tile_cache.pop(k, None)
+        if removed:
+            keys = self._tile_keys(present)
+            try:
+                tri = assemble([self._tile_mesh(k, free.region) for k in keys], self.grid)
+                ids = vertex_ids(tri, points)
+                if np.any(ids < 0):  # a kept tile from another history: triangulate anew
+                    for k in keys:
+                        self._tile_cache.pop(k, None)
+                    tri = assemble([self._tile_mesh(k, free.region) for k in keys], self.grid)
+                    ids = vertex_ids(tri, points)
+            except (shapely.errors.GEOSException, TileMismatch):
+                tri, ids = triangulate(free.region, points)
+                fallback = True
+                self.stats["fallback_triangulations"] += 1
+                for k in keys:
+                    self._tile_cache.pop(k, None)
+        else:
+            tri, ids = _points_only(points)
         timing["triangulate"] = time.perf_counter() - t1
 
         corner_vertex, pinch_vertex = ids[: len(c_xy_all)], ids[len(c_xy_all):]
@@ -514,6 +519,8 @@ class FootprintSpace:
         corner_ptr = np.zeros(len(tri.xy) + 1, dtype=np.int64)
         np.cumsum(np.bincount(c_vertex, minlength=len(tri.xy)), out=corner_ptr[1:])
         node_vertex = np.unique(np.concatenate([c_vertex, pinch_vertex]))
+        # nodes in (x, y) order, as build_roadmap's (its vertex ids follow that order)
+        node_vertex = node_vertex[np.lexsort((tri.xy[node_vertex, 1], tri.xy[node_vertex, 0]))]
         vertex_node = np.full(len(tri.xy), -1, dtype=np.int64)
         vertex_node[node_vertex] = np.arange(len(node_vertex))
         nodes = tri.xy[node_vertex]
@@ -524,79 +531,64 @@ class FootprintSpace:
                   else shrunk_parts[0] if shrunk_parts else shapely.Polygon())
         if not shrunk.is_empty:
             shapely.prepare(shrunk)
-        # occluders for the road map's cheap filter: the present pieces shrunk by eps lie
-        # inside `blocked` shrunk by eps, so a segment meeting one is certainly not visible
-        occ = [self._occluders_of(i) for i in sorted(present)]
-        occ = np.concatenate(occ) if occ else np.empty(0, dtype=object)
-        occ = occ[~shapely.is_empty(occ)] if len(occ) else occ
+        # disks for the cheap occlusion filter: each present piece's inscribed disk, less eps
+        # and a little, lies inside `blocked` shrunk by eps
+        disk_xy, disk_r = self._disks(sorted(present))
+        occ_node = vertex_node[c_vertex]
         try:
             roadmap = _make_roadmap(
                 free=free, nodes=nodes, graph=csr_matrix((n, n)), stats={}, _tri=tri,
                 _shrunk=shrunk, _tol=self.tol, _vertex_node=vertex_node,
                 _corner_ptr=corner_ptr, _corner_prev=c_prev, _corner_next=c_next,
                 _pinch=is_pinch, _occ_xy=c_xy, _occ_up=_unit(c_prev - c_xy),
-                _occ_un=_unit(c_next - c_xy), _occ_node=vertex_node[c_vertex],
-                _pinch_nodes=vertex_node[pinch_vertex],
-                _occluders=shapely.STRtree(occ) if len(occ) else None,
+                _occ_un=_unit(c_next - c_xy), _occ_node=occ_node,
+                _pinch_nodes=vertex_node[pinch_vertex], _disk_xy=disk_xy, _disk_r=disk_r,
             )
         except _OutOfStep as exc:  # roadmap.Roadmap changed: build this state whole
             self.stats["out_of_step"] = str(exc)
-            whole = build_roadmap(free)
-            g = whole.graph.tocoo()
-            up = g.row < g.col
-            return StateSpace(present=present, clusters=clusters, free=free, roadmap=whole,
-                              edges=np.stack([g.row[up], g.col[up]], axis=1).astype(np.int64),
-                              tiles=tuple(keys), stats=whole.stats)
+            return self._whole(present, clusters, free)
 
         # which nodes a change may concern, and the parent's edges that still hold
         t1 = time.perf_counter()
-        added = sorted(present - parent.present) if parent is not None else []
-        removed = sorted(parent.present - present) if parent is not None else []
-        kept_edges = np.zeros((0, 2), dtype=np.int64)
-        child_of_parent = None
-        if parent is None:
-            touched = np.ones(n, dtype=bool)
-        else:
-            changed = _expand(self._bounds[added + removed], self.pad)
-            touched = np.ones(n, dtype=bool)
-            child_of_parent = _match(parent.roadmap.nodes, nodes)
-            found = child_of_parent[child_of_parent >= 0]
-            touched[found] = False
-            if len(changed) and n:
-                near = shapely.STRtree(_boxes(changed)).query(shapely.points(nodes),
-                                                               predicate="intersects")[0]
-                touched[near] = True
-            if removed:
-                touched[vertex_node[pinch_vertex]] = True  # pinch points look every way
-            child_of_parent = np.where(child_of_parent >= 0, child_of_parent, -1)
-            ok_parent = child_of_parent >= 0
-            ok_parent[ok_parent] = ~touched[child_of_parent[ok_parent]]
-            child_of_parent[~ok_parent] = -1
-            pe = parent.edges
-            cu, cv = child_of_parent[pe[:, 0]], child_of_parent[pe[:, 1]]
-            both = (cu >= 0) & (cv >= 0)
-            kept_edges = np.stack([cu[both], cv[both]], axis=1)
-            kept_edges = np.stack([kept_edges.min(axis=1), kept_edges.max(axis=1)], axis=1)
-            if added and len(kept_edges):
-                boxes = shapely.STRtree(_boxes(_expand(self._bounds[added], self.pad)))
-                lines = shapely.linestrings(np.stack(
-                    [nodes[kept_edges[:, 0]], nodes[kept_edges[:, 1]]], axis=1))
-                near = np.unique(boxes.query(lines, predicate="intersects")[0])
-                if len(near):
-                    ok = np.ones(len(kept_edges), dtype=bool)
-                    ok[near] = roadmap.visible(nodes[kept_edges[near, 0]],
-                                               nodes[kept_edges[near, 1]])
-                    kept_edges = kept_edges[ok]
+        changed = _expand(self._bounds[added + removed], self.pad)
+        touched = np.ones(n, dtype=bool)
+        child_of_parent = _match(parent.roadmap.nodes, nodes)
+        touched[child_of_parent[child_of_parent >= 0]] = False
+        pass
+        if removed:
+            touched[vertex_node[pinch_vertex]] = True  # pinch points look every way
+        ok_parent = child_of_parent >= 0
+        ok_parent[ok_parent] = ~touched[child_of_parent[ok_parent]]
+        child_of_parent[~ok_parent] = -1
+        pe = parent.edges
+        cu, cv = child_of_parent[pe[:, 0]], child_of_parent[pe[:, 1]]
+        both = (cu >= 0) & (cv >= 0)
+        kept_edges = np.stack([np.minimum(cu[both], cv[both]), np.maximum(cu[both], cv[both])],
+                              axis=1)
+        if added and len(kept_edges):
+            near = np.flatnonzero(_segments_near(
+                nodes[kept_edges[:, 0]], nodes[kept_edges[:, 1]],
+                _expand(self._bounds[added], self.pad)))
+            if len(near):
+                ok = np.ones(len(kept_edges), dtype=bool)
+                ok[near] = roadmap.visible(nodes[kept_edges[near, 0]],
+                                           nodes[kept_edges[near, 1]])
+                kept_edges = kept_edges[ok]
         timing["keep"] = time.perf_counter() - t1
 
-        # walks: every way from the nodes a change concerns; towards what went from the others
+        # new edges: every way from the nodes a change concerns; where obstacles went, the
+        # others look towards those places only
         t1 = time.perf_counter()
-        pairs = [self._walk_all(roadmap, tri, c_vertex, c_xy, c_prev, c_next, pinch_vertex,
-                                touched)]
         if removed:
-            pairs.append(self._walk_towards(roadmap, tri, c_vertex, c_xy, c_prev, c_next,
-                                            ~touched, _expand(self._bounds[removed], self.pad)))
-        timing["walk"] = time.perf_counter() - t1
+            pairs = [self._walk_all(roadmap, tri, c_vertex, c_xy, c_prev, c_next,
+                                    pinch_vertex, touched),
+                     self._walk_towards(roadmap, tri, c_vertex, c_xy, c_prev, c_next,
+                                        ~touched, _expand(self._bounds[removed], self.pad))]
+        else:
+            pairs = [self._tangent_pairs(c_xy, c_prev, c_next, occ_node,
+                                         vertex_node[pinch_vertex], nodes, touched, disk_xy,
+                                         disk_r)]
+        timing["candidates"] = time.perf_counter() - t1
         t1 = time.perf_counter()
         cand = np.concatenate(pairs)
         if len(cand):
@@ -608,20 +600,13 @@ class FootprintSpace:
             0, bool)
         edges = np.concatenate([kept_edges, cand[ok]]) if len(cand) else kept_edges
         edges = np.unique(edges, axis=0) if len(edges) else np.zeros((0, 2), dtype=np.int64)
-        w = np.hypot(*(nodes[edges[:, 0]] - nodes[edges[:, 1]]).T)
-        roadmap.graph = csr_matrix(
-            (np.concatenate([w, w]), (np.concatenate([edges[:, 0], edges[:, 1]]),
-                                      np.concatenate([edges[:, 1], edges[:, 0]]))),
-            shape=(n, n),
-        )
+        roadmap.graph = _graph(nodes, edges)
         timing["exact-visibility"] = time.perf_counter() - t1
-        if parent is not None and not removed and added:
+        if added and not removed:
             roadmap._source = _SightSource(
                 cache=parent.roadmap._sight_cache, child_of_parent=child_of_parent,
-                added=shapely.STRtree(_boxes(_expand(self._bounds[added], self.pad))),
+                added=_expand(self._bounds[added], self.pad),
                 touched=np.flatnonzero(touched), node_vertex=node_vertex)
-        elif parent is not None and not removed and not added:
-            roadmap._sight_cache.update(parent.roadmap._sight_cache)
         timing["total"] = time.perf_counter() - t0
         roadmap.stats = {
             "corners": int(len(c_xy_all)),
@@ -632,12 +617,63 @@ class FootprintSpace:
             "touched": int(touched.sum()),
             "kept-edges": int(len(kept_edges)),
             "edges": int(len(edges)),
-            "derived": parent is not None,
+            "derived": True,
             "fallback-triangulation": fallback,
             "seconds": timing,
         }
         return StateSpace(present=present, clusters=clusters, free=free, roadmap=roadmap,
                           edges=edges, tiles=tuple(keys), stats=roadmap.stats)
+
+    def _whole(self, present: frozenset[int], clusters: tuple[_Cluster, ...], free: FreeSpace
+               ) -> StateSpace:
+        """A state built whole by build_roadmap (its edges kept for the states derived next)."""
+        whole = build_roadmap(free)
+        g = whole.graph.tocoo()
+        up = g.row < g.col
+        edges = np.stack([g.row[up], g.col[up]], axis=1).astype(np.int64)
+        order = np.lexsort((edges[:, 1], edges[:, 0])) if len(edges) else np.zeros(0, int)
+        return StateSpace(present=present, clusters=clusters, free=free, roadmap=whole,
+                          edges=edges[order], tiles=(), stats={**whole.stats, "derived": False})
+
+    def _tangent_pairs(self, c_xy, c_prev, c_next, occ_node, pinch_nodes, nodes, touched,
+                       disk_xy, disk_r) -> np.ndarray:
+        """Candidate pairs from the touched nodes to every node: lines tangent at both ends
+        (pinch points need no tangent), less those a disk inside `blocked` certainly hides."""
+        up, un = _unit(c_prev - c_xy), _unit(c_next - c_xy)
+        tol = self.tol
+        out = []
+        src_occ = np.flatnonzero(touched[occ_node]) if len(occ_node) else np.zeros(0, int)
+        for a in range(0, len(src_occ), _PAIR_CHUNK):
+            s = src_occ[a:a + _PAIR_CHUNK]
+            dx = c_xy[s, 0:1] - c_xy[None, :, 0]  # source minus target
+            dy = c_xy[s, 1:2] - c_xy[None, :, 1]
+            slack = tol * np.hypot(dx, dy)
+            at_v = _tangent_xy(dx, dy, up[None, :, :], un[None, :, :], slack)
+            at_u = _tangent_xy(-dx, -dy, up[s, None, :], un[s, None, :], slack)
+            r, c = np.nonzero(at_v & at_u)
+            out.append(np.stack([occ_node[s[r]], occ_node[c]], axis=1))
+            if len(pinch_nodes):  # a line to a pinch point needs a tangent at the source only
+                dpx = c_xy[s, 0:1] - nodes[None, pinch_nodes, 0]
+                dpy = c_xy[s, 1:2] - nodes[None, pinch_nodes, 1]
+                ok = _tangent_xy(-dpx, -dpy, up[s, None, :], un[s, None, :],
+                                 tol * np.hypot(dpx, dpy))
+                r, c = np.nonzero(ok)
+                out.append(np.stack([occ_node[s[r]], pinch_nodes[c]], axis=1))
+        src_pinch = pinch_nodes[touched[pinch_nodes]] if len(pinch_nodes) else pinch_nodes
+        for a in range(0, len(src_pinch), _PAIR_CHUNK):
+            s = src_pinch[a:a + _PAIR_CHUNK]
+            dx = nodes[s, 0:1] - c_xy[None, :, 0]
+            dy = nodes[s, 1:2] - c_xy[None, :, 1]
+            ok = _tangent_xy(dx, dy, up[None, :, :], un[None, :, :], tol * np.hypot(dx, dy))
+            r, c = np.nonzero(ok)
+            out.append(np.stack([s[r], occ_node[c]], axis=1))
+            out.append(np.stack(np.meshgrid(s, pinch_nodes, indexing="ij"), axis=-1
+                                ).reshape(-1, 2))
+        pairs = _pairs(out)
+        if len(pairs):
+            pairs = np.unique(pairs, axis=0)
+            pairs = pairs[~_occluded(nodes[pairs[:, 0]], nodes[pairs[:, 1]], disk_xy, disk_r)]
+        return pairs
 
     def _walk_all(self, roadmap: Roadmap, tri, c_vertex, c_xy, c_prev, c_next, pinch_vertex,
                   touched: np.ndarray) -> np.ndarray:
@@ -692,6 +728,75 @@ class FootprintSpace:
                                                  np.concatenate([seen_v, w_v]))
             out.append(np.stack([vn[cv[rows][src]], vn[vert]], axis=1))
         return _pairs(out)
+
+
+def _inscribed_disks(pieces: np.ndarray, eps: float, scale: float
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """Per convex piece, the centre and radius of a disk inside it shrunk by eps (radius <= 0
+    where the piece is too thin): the largest inscribed circle, less 4 eps and a little."""
+    if len(pieces) == 0:
+        return np.empty((0, 2)), np.empty(0)
+    x0, y0, x1, y1 = shapely.bounds(pieces).T
+    lines = shapely.maximum_inscribed_circle(pieces, tolerance=np.maximum(x1 - x0, y1 - y0) / 50)
+    centres = shapely.get_point(lines, 0)
+    radius = shapely.distance(centres, shapely.boundary(pieces)) - 4.0 * eps - 1e-9 * scale
+    radius = np.where(shapely.contains(pieces, centres), radius, 0.0)
+    return shapely.get_coordinates(centres), radius
+
+
+def _tangent_xy(dx, dy, up, un, slack) -> np.ndarray:
+    """A line in direction (dx, dy) from the other end leaves both ring neighbours (unit
+    vectors up, un from the corner) on one closed side, within `slack`: it is tangent there."""
+    sp = dx * up[..., 1] - dy * up[..., 0]
+    sn = dx * un[..., 1] - dy * un[..., 0]
+    return (sp * sn >= 0) | (np.minimum(np.abs(sp), np.abs(sn)) <= slack)
+
+
+def _occluded(p: np.ndarray, q: np.ndarray, disk_xy: np.ndarray, disk_r: np.ndarray
+              ) -> np.ndarray:
+    """Segments p-q passing closer to a disk's centre than its radius (certainly hidden: the
+    disks lie inside `blocked` shrunk by eps). A filter only; it never says visible."""
+    out = np.zeros(len(p), dtype=bool)
+    live = np.arange(len(p))
+    for s in range(0, len(disk_r), _DISK_BLOCK):
+        if len(live) == 0:
+            break
+        c, r2 = disk_xy[s:s + _DISK_BLOCK], disk_r[s:s + _DISK_BLOCK] ** 2
+        a = p[live]
+        dx, dy = (q[live] - a).T
+        ll = dx * dx + dy * dy
+        ll[ll == 0] = 1.0
+        cx = c[None, :, 0] - a[:, 0:1]
+        cy = c[None, :, 1] - a[:, 1:2]
+        t = np.clip((cx * dx[:, None] + cy * dy[:, None]) / ll[:, None], 0.0, 1.0)
+        cx -= t * dx[:, None]
+        cy -= t * dy[:, None]
+        hit = np.any(cx * cx + cy * cy < r2[None, :], axis=1)
+        out[live[hit]] = True
+        live = live[~hit]
+    return out
+
+
+def _points_only(points: np.ndarray):
+    """A triangulation with no triangles whose vertices are the given points ((x, y) order),
+    and each point's vertex id: all a road map needs when nothing will walk it."""
+    key = points[:, 0] + 1j * points[:, 1] if len(points) else np.zeros(0, complex)
+    uniq, inv = np.unique(key, return_inverse=True)
+    xy = np.stack([uniq.real, uniq.imag], axis=1) if len(uniq) else np.zeros((0, 2))
+    z = np.zeros((0, 3), dtype=np.int64)
+    tri = Triangulation(xy=xy, tri=z, nbr=z, nbr_k=z,
+                        fan_ptr=np.zeros(len(xy) + 1, dtype=np.int64),
+                        fan_tri=np.zeros(0, dtype=np.int64), fan_j=np.zeros(0, dtype=np.int64),
+                        polygons=np.empty(0, dtype=object))
+    return tri, inv.reshape(-1).astype(np.int64)
+
+
+def _graph(nodes: np.ndarray, edges: np.ndarray) -> csr_matrix:
+    n = len(nodes)
+    w = np.hypot(*(nodes[edges[:, 0]] - nodes[edges[:, 1]]).T)
+    return csr_matrix((np.concatenate([w, w]), (np.concatenate([edges[:, 0], edges[:, 1]]),
+                                                np.concatenate([edges[:, 1], edges[:, 0]]))),
+                      shape=(n, n))
 
 
 class _OutOfStep(Exception):

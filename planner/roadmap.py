@@ -441,11 +441,12 @@ def _simplify(pts: np.ndarray) -> np.ndarray:
 
 def inner_disks(shrunk: shapely.Geometry, box: shapely.Polygon, *, eps: float
                 ) -> tuple[np.ndarray, np.ndarray]:
-    """Centres (k, 2) and radii (k,) of disks inside `shrunk`, for the occlusion filter.
+    """Centres (k, 2) and radii (k,) of disks inside `shrunk`, largest first, for the
+    occlusion filter.
 
-    Centres are grid points inside `shrunk`, each radius its distance to the boundary less a
-    little (so a segment passing closer than it certainly meets `shrunk`); the largest disks
-    first, none centred inside one already taken.
+    Centres are the points of a grid over the box that lie inside `shrunk` and are farther from
+    its boundary than their grid neighbours (a sampled medial axis); each radius is that
+    distance less a little, so a segment passing closer to the centre certainly meets `shrunk`.
     """
     if shrunk.is_empty:
         return np.empty((0, 2)), np.empty(0)
@@ -453,30 +454,21 @@ def inner_disks(shrunk: shapely.Geometry, box: shapely.Polygon, *, eps: float
     step = max(np.sqrt((x1 - x0) * (y1 - y0) / _DISK_GRID), eps)
     gx = np.arange(x0 + step / 2, x1, step)
     gy = np.arange(y0 + step / 2, y1, step)
-    px, py = (a.ravel() for a in np.meshgrid(gx, gy))
+    px, py = np.meshgrid(gx, gy)
     inside = shapely.contains_xy(shrunk, px, py)
-    px, py = px[inside], py[inside]
-    if len(px) == 0:
+    if not inside.any():
         return np.empty((0, 2)), np.empty(0)
-    points = shapely.points(px, py)
-    hit, dist = shapely.STRtree(_boundary_pieces(shrunk)).query_nearest(
-        points, return_distance=True, all_matches=False)
-    radius = np.full(len(px), 0.0)
-    radius[hit[0]] = dist
-    radius = radius - 4.0 * eps - 1e-9 * (abs(x1 - x0) + abs(y1 - y0))
-    order = np.argsort(-radius, kind="stable")
-    xy = np.column_stack([px, py])[order]
-    radius = radius[order]
-    keep: list[int] = []
-    for i in np.flatnonzero(radius > step / 2):
-        if keep:
-            k = np.asarray(keep)
-            if np.any(np.hypot(*(xy[k] - xy[i]).T) < radius[k]):
-                continue
-        keep.append(int(i))
-        if len(keep) >= _MAX_DISKS:
-            break
-    return xy[keep], radius[keep]
+    _, dist = shapely.STRtree(_boundary_pieces(shrunk)).query_nearest(
+        shapely.points(px[inside], py[inside]), return_distance=True, all_matches=False)
+    radius = np.zeros(px.shape)
+    radius[inside] = dist - 4.0 * eps - 1e-9 * (abs(x1 - x0) + abs(y1 - y0))
+    pad = np.pad(radius, 1)
+    around = np.max([pad[1 + i:pad.shape[0] - 1 + i, 1 + j:pad.shape[1] - 1 + j]
+                     for i in (-1, 0, 1) for j in (-1, 0, 1)], axis=0)
+    peak = (radius >= around) & (radius > step / 2)
+    order = np.argsort(-radius[peak], kind="stable")[:_MAX_DISKS]
+    xy = np.column_stack([px[peak], py[peak]])[order]
+    return xy, radius[peak][order]
 
 
 def _boundary_pieces(geom: shapely.Geometry, size: int = 32) -> np.ndarray:
@@ -498,6 +490,24 @@ def _boundary_pieces(geom: shapely.Geometry, size: int = 32) -> np.ndarray:
     pts, ids = pts[ok], ids[ok]
     _, ids = np.unique(ids, return_inverse=True)
     return shapely.linestrings(pts, indices=ids)
+
+
+_DOWN = np.array([0.0, -1.0])
+_UP = np.array([0.0, 1.0])
+
+
+def _rightward_cones(lo: np.ndarray, hi: np.ndarray
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each cone (counter-clockwise from unit vector lo[i] to hi[i], narrower than pi) cut to
+    the closed right half-plane of directions (x >= 0): (index of the cone, lo, hi) for the
+    cones that keep a part (two arcs, one narrower than pi, meet in one piece at most)."""
+    lo_in = lo[:, 0] >= 0
+    hi_in = hi[:, 0] >= 0
+    keep = lo_in | hi_in
+    new_lo = np.where(lo_in[:, None], lo, _DOWN)
+    new_hi = np.where(hi_in[:, None], hi, _UP)
+    idx = np.flatnonzero(keep)
+    return idx, new_lo[idx], new_hi[idx]
 
 
 def build_roadmap(free: FreeSpace) -> Roadmap:
@@ -537,15 +547,19 @@ def build_roadmap(free: FreeSpace) -> Roadmap:
     nodes = tri.xy[node_vertex]
 
     # each corner looks only along its tangent lines: two cones between the extensions of its
-    # two edges, forwards and backwards
+    # two edges, forwards and backwards; and only to the right (x growing, or straight up or
+    # down), since a bitangent pair is then found from its left end (a pinch point, which
+    # looks every way, finds its pairs itself)
     t1 = time.perf_counter()
     lo = _unit(c_next - c_xy)
     hi = _unit(c_xy - c_prev)
-    cones_lo = np.stack([lo, -lo], axis=1)
-    cones_hi = np.stack([hi, -hi], axis=1)
-    windows, seen_src, seen_v = node_windows(tri, c_vertex, cones_lo, cones_hi, tol)
-    w_src, w_v = walk(tri, c_xy, windows, tol)
-    src = np.concatenate([seen_src, w_src])
+    cone_src, cone_lo, cone_hi = _rightward_cones(np.concatenate([lo, -lo]),
+                                                  np.concatenate([hi, -hi]))
+    cone_src = cone_src % len(c_xy)
+    windows, seen_src, seen_v = node_windows(tri, c_vertex[cone_src], cone_lo[:, None],
+                                             cone_hi[:, None], tol)
+    w_src, w_v = walk(tri, c_xy[cone_src], windows, tol)
+    src = cone_src[np.concatenate([seen_src, w_src])]
     vert = np.concatenate([seen_v, w_v])
     p_xy = tri.xy[pinch_vertex]
     fans = [tri.fan_tri[tri.fan_ptr[v]:tri.fan_ptr[v + 1]] for v in pinch_vertex]

@@ -14,7 +14,7 @@ import math
 import numpy as np
 import pytest
 import shapely
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from planner.config import load_settings
@@ -22,6 +22,7 @@ from planner.cspace import build_free_space
 from planner.incremental import FootprintSpace, StateRoadmap
 from planner.model import Circle, Head, Obstacle, Scene, Target, Travel
 from planner.roadmap import NoPath, build_roadmap
+from planner.tiles import TileGrid, TileMismatch, assemble, tile_mesh
 from tests.helpers import REPO_CONFIG
 
 SETTINGS = load_settings(REPO_CONFIG)
@@ -94,10 +95,12 @@ def assert_same_as_from_scratch(space: FootprintSpace, present: frozenset, scene
     # GEOS: the two free spaces cover the same ground (area of the symmetric difference ~ 0)
     assert shapely.symmetric_difference(free.blocked, st_.free.blocked).area <= 1e-9
     assert shapely.symmetric_difference(free.region, st_.free.region).area <= 1e-9
-    # the triangulation tiles the free region: its triangles' areas add up to the region's
+    # where the state has a triangulation (after a removal), it tiles the free region: its
+    # triangles' areas add up to the region's
     tri = st_.roadmap._tri
-    assert math.isclose(float(shapely.area(tri.polygons).sum()), st_.free.region.area,
-                        rel_tol=1e-9, abs_tol=1e-9)
+    if len(tri.tri):
+        assert math.isclose(float(shapely.area(tri.polygons).sum()), st_.free.region.area,
+                            rel_tol=1e-9, abs_tol=1e-9)
     # the same corners and the same visibility graph
     assert np.array_equal(np.sort(st_.roadmap.nodes.view(complex).ravel()),
                           np.sort(roadmap.nodes.view(complex).ravel()))
@@ -158,3 +161,31 @@ def test_a_derived_state_sees_what_a_fresh_road_map_sees():
         b = sorted(map(tuple, fresh.nodes[fn]))
         assert a == b
         assert sorted(dd) == pytest.approx(sorted(fd))
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(obstacles(0), min_size=1, max_size=12), st.integers(1, 40))
+def test_tiles_put_together_tile_the_region_edge_to_edge(obs, tiles):
+    scene = scene_of(obs, FOOTPRINTS["square"])
+    region = build_free_space(scene, SETTINGS).region
+    grid = TileGrid.over((0, 0, 200, 200), tiles, 64)
+    try:
+        t = assemble([tile_mesh(region, b, grid) for b in grid.bounds], grid)
+    except TileMismatch:  # allowed: the caller then triangulates the region whole
+        event("tiles did not meet edge to edge")
+        return
+    # GEOS: the triangles cover the region, without overlap (areas add up, union equals it)
+    assert math.isclose(float(shapely.area(t.polygons).sum()), region.area, rel_tol=1e-9)
+    assert shapely.symmetric_difference(shapely.union_all(t.polygons), region).area <= 1e-6
+    # every link is mutual and the two triangles share the edge's two vertices
+    tt, jj = np.nonzero(t.nbr >= 0)
+    other, kk = t.nbr[tt, jj], t.nbr_k[tt, jj]
+    assert np.array_equal(t.nbr[other, kk], tt)
+    edge = np.sort(np.stack([t.tri[tt, (jj + 1) % 3], t.tri[tt, (jj + 2) % 3]], 1), axis=1)
+    back = np.sort(np.stack([t.tri[other, (kk + 1) % 3], t.tri[other, (kk + 2) % 3]], 1), axis=1)
+    assert np.array_equal(edge, back)
+    # an open edge lies on the region's boundary (GEOS: the boundary covers it)
+    to, jo = np.nonzero(t.nbr < 0)
+    a, b = t.xy[t.tri[to, (jo + 1) % 3]], t.xy[t.tri[to, (jo + 2) % 3]]
+    mid = shapely.points((a + b) / 2)
+    assert np.all(shapely.distance(region.boundary, mid) <= 1e-9)
