@@ -235,7 +235,14 @@ def dump_route(route: Route, resolution: float) -> str:
         f"length: {_fixed(leg_ticks.sum(), decimals)}",
     ]
     for key, value in _ordered_extra(route.extra, _ROUTE_KEYS + _ROUTE_TAIL, ("time",), "route"):
-        lines.append(f"{_key(key)}: {_flow(value, decimals)}")
+        if isinstance(value, Mapping) and value:  # e.g. files: one companion file a line
+            lines.append(f"{_key(key)}:")
+            lines.extend(
+                f"  {_key(k)}: {_quoted(v) if isinstance(v, str) else _flow(v, decimals)}"
+                for k, v in value.items()
+            )
+        else:
+            lines.append(f"{_key(key)}: {_flow(value, decimals)}")
     lines.append("legs:" if route.legs else "legs: []")
     for i, (leg, ticks) in enumerate(zip(route.legs, leg_ticks, strict=True)):
         if len(leg.points) == 0:
