@@ -554,7 +554,7 @@ class FootprintSpace:
         touched = np.ones(n, dtype=bool)
         child_of_parent = _match(parent.roadmap.nodes, nodes)
         touched[child_of_parent[child_of_parent >= 0]] = False
-        pass
+        touched |= _in_boxes(nodes, changed)
         if removed:
             touched[vertex_node[pinch_vertex]] = True  # pinch points look every way
         ok_parent = child_of_parent >= 0

@@ -118,3 +118,21 @@ def test_bad_scene_exits_2_with_one_message_and_writes_nothing(name: str, tmp_pa
     assert name in run.stderr
     assert len(run.stderr.strip().splitlines()) == 1
     assert not out.exists() or not any(out.iterdir())
+
+
+def test_readme_walkthrough_shows_the_route_the_planner_writes(tmp_path: Path):
+    # The README's example route must be what `sidestep plan` really writes for
+    # docs/example/job.yaml (hashes are shortened there, so they are not compared).
+    readme = (REPO / "README.md").read_text()
+    block = readme.split("writes `routes/job.route.yaml`", 1)[1].split("```yaml\n", 1)[1]
+    shown = yaml.safe_load(block.split("```", 1)[0])
+    run = sidestep("plan", str(REPO / "docs/example/job.yaml"), "--out", str(tmp_path),
+                   "--config", str(CONFIG))
+    assert run.returncode == 0, run.stderr
+    written = yaml.safe_load((tmp_path / "job.route.yaml").read_text())
+    for key in ("status", "length", "time", "unreachable"):
+        assert shown[key] == written[key], key
+    assert [(leg["from"], leg["to"], leg["length"], leg["points"]) for leg in shown["legs"]] == [
+        (leg["from"], leg["to"], leg["length"], leg["points"]) for leg in written["legs"]
+    ]
+    assert list(shown["files"]) == list(written["files"])
