@@ -67,13 +67,33 @@ def _python_env() -> dict[str, str]:
     return env
 
 
+def _peak_kib(pid: int) -> int:
+    """The process's resident high-water mark (VmHWM) so far, in KiB; 0 if unknown."""
+    try:
+        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except (OSError, ValueError, IndexError):
+        pass
+    return 0
+
+
 def _child(cmd: list[str]) -> tuple[int, str, str, dict]:
-    """Run a command; exit status, stdout, stderr, and its wall/CPU seconds and peak memory."""
+    """Run a command; exit status, stdout, stderr, and its wall/CPU seconds and peak memory.
+
+    The peak is read from /proc while the child runs (its high-water mark only grows), not from
+    ru_maxrss, which Linux carries over from the forking parent through exec."""
     w = time.perf_counter()
+    peak = 0
     with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
         proc = subprocess.Popen(cmd, stdout=out, stderr=err, cwd=ROOT, env=_python_env())
         try:
-            _, status, usage = os.wait4(proc.pid, 0)
+            while True:
+                peak = max(peak, _peak_kib(proc.pid))
+                pid, status, usage = os.wait4(proc.pid, os.WNOHANG)
+                if pid:
+                    break
+                time.sleep(0.005)
         except BaseException:
             proc.kill()
             raise
@@ -82,8 +102,9 @@ def _child(cmd: list[str]) -> tuple[int, str, str, dict]:
         out.seek(0)
         err.seek(0)
         stdout, stderr = out.read().decode(), err.read().decode()
-    used = {"wall_s": wall, "cpu_s": usage.ru_utime + usage.ru_stime,
-            "peak_rss_mib": usage.ru_maxrss / 1024.0}
+    if peak == 0:  # no /proc: the kernel's figure, which may include the parent's
+        peak = usage.ru_maxrss
+    used = {"wall_s": wall, "cpu_s": usage.ru_utime + usage.ru_stime, "peak_rss_mib": peak / 1024}
     return proc.returncode, stdout, stderr, used
 
 

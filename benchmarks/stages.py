@@ -36,6 +36,18 @@ class Clock:
         return out
 
 
+def _peak_kib() -> int:
+    """This process's resident high-water mark in KiB (/proc; ru_maxrss would include what the
+    forking parent had)."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except (OSError, ValueError, IndexError):
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+
+
 def _route_legs(scene) -> list[tuple[str, tuple, str, tuple]]:
     from planner.model import FINISH, START
 
@@ -118,7 +130,7 @@ def run_stages(scene_path: Path, out_dir: Path) -> dict:
         return written
 
     written = clock.run("write", write)
-    peak_kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    peak_kib = _peak_kib()
     stats = {k: v for k, v in roadmap.stats.items() if k != "seconds"}
     return {
         "scene": str(scene_path),

@@ -14,6 +14,9 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
+from .budget import check_time
+from .errors import PlanningError
+
 __all__ = ["Triangulation", "triangulate", "Windows", "walk", "node_windows", "point_windows"]
 
 
@@ -39,8 +42,10 @@ def _key_ids(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Unique rows of an (n, 2) float array and the id of every row (exact comparison)."""
     if len(points) == 0:
         return np.empty((0, 2)), np.empty(0, dtype=np.int64)
-    uniq, inv = np.unique(points, axis=0, return_inverse=True)
-    return uniq, inv.reshape(-1).astype(np.int64)
+    # one complex number per row sorts as (x, y) and is several times faster than axis=0
+    z = np.ascontiguousarray(points, dtype=np.float64).view(np.complex128).reshape(-1) + 0.0
+    uniq, inv = np.unique(z, return_inverse=True)
+    return np.column_stack([uniq.real, uniq.imag]), inv.reshape(-1).astype(np.int64)
 
 
 # GEOS joins a polygon's holes to its shell before triangulating, at a cost that grows with
@@ -109,7 +114,11 @@ def triangulate(region: shapely.Geometry, points: np.ndarray) -> tuple[Triangula
     except (shapely.errors.GEOSException, _CutMismatch):
         result = None
     if result is None:
-        result = _build(_triangles(list(parts)), points, np.empty(0), np.empty(0))
+        try:
+            result = _build(_triangles(list(parts)), points, np.empty(0), np.empty(0))
+        except shapely.errors.GEOSException as exc:
+            raise PlanningError(f"could not triangulate the free space: GEOS failed ({exc})"
+                                ) from exc
     return result
 
 
@@ -253,6 +262,7 @@ def walk(
     steps = 0
     while len(src) and steps < limit:
         steps += 1
+        check_time("looking for visible corners")
         base = 3 * tri
         w = tri_flat[base + k]
         k1 = _NEXT[k]

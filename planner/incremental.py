@@ -33,6 +33,7 @@ import shapely
 from scipy.sparse import csr_matrix
 
 from ._visibility import Triangulation, node_windows, point_windows, triangulate, walk
+from .budget import check_time
 from .config import Settings
 from .cspace import (
     EPS_PER_RESOLUTION,
@@ -47,7 +48,7 @@ from .roadmap import Roadmap, build_roadmap, reflex_corners
 from .states import State, footprint_of, present_obstacles
 from .tiles import TileGrid, TileMesh, TileMismatch, assemble, tile_mesh, vertex_ids
 
-__all__ = ["LegSpace", "StateSpaces", "FootprintSpace", "StateSpace", "StateRoadmap"]
+__all__ = ["LegSpace", "StateSpaces", "FootprintSpace", "StateSpace"]
 
 # Region vertices per triangulation tile: small tiles make an update cheap, large ones keep the
 # walks short (fewer cut lines to cross). Common practice, no source: measured on the benchmark
@@ -56,7 +57,8 @@ _VERTICES_PER_TILE = 400
 _MAX_TILES_PER_AXIS = 64
 _MAX_DISKS = 1024  # occlusion disks per road map, the largest (a filter only)
 _DISK_BLOCK = 64  # disks tested together by the occlusion filter (bounds array sizes only)
-_PAIR_CHUNK = 16  # source corners tested together against every corner (array sizes only)
+_PAIR_CHUNK = 64  # source corners tested together against every corner (array sizes only)
+_UNION_BLOCK = 16  # obstacles per block of a cluster's union (blocks are cached)
 # A derived state that changes more than this share of the obstacles is built whole instead.
 _REBUILD_SHARE = 0.5
 
@@ -113,52 +115,6 @@ class _UnionFind:
 
 
 @dataclass(eq=False)
-class _SightSource:
-    """How a derived road map gets a point's sight from its parent's without walking again
-    (only after additions: what a point sees then is what it saw, less what the added obstacles
-    hide, plus the corners near them)."""
-
-    cache: dict
-    child_of_parent: np.ndarray  # parent node -> child node, -1 where it changed
-    added: np.ndarray  # (k, 4) boxes around the added obstacles (grown, padded)
-    touched: np.ndarray  # child nodes near a change
-    node_vertex: np.ndarray  # child node -> triangulation vertex
-
-
-@dataclass(eq=False)
-class StateRoadmap(Roadmap):
-    """A road map derived from another state's: the same queries, with sights derived."""
-
-    _source: _SightSource | None = None
-
-    def _derived_sight(self, p: np.ndarray, src: _SightSource) -> tuple[np.ndarray, np.ndarray]:
-        nodes_p, dist_p = src.cache[(float(p[0]), float(p[1]))]
-        child = src.child_of_parent[nodes_p]  # -1 for nodes that changed or a change concerns
-        keep = child >= 0
-        child, dist = child[keep], dist_p[keep]
-        if len(child):
-            near = np.flatnonzero(_segments_near(np.broadcast_to(p, (len(child), 2)),
-                                                 self.nodes[child], src.added))
-            if len(near):
-                ok = np.ones(len(child), dtype=bool)
-                ok[near] = self.visible(np.broadcast_to(p, (len(near), 2)), self.nodes[child[near]])
-                child, dist = child[ok], dist[ok]
-        t = src.touched
-        if len(t):
-            s, v = self._tangent_at_node(p.reshape(1, 2), np.zeros(len(t), dtype=np.int64),
-                                         src.node_vertex[t])
-            cand = np.unique(self._vertex_node[v])
-            cand = cand[cand >= 0]
-            if len(cand):
-                ok = self.visible(np.broadcast_to(p, (len(cand), 2)), self.nodes[cand])
-                cand = cand[ok]
-                child = np.concatenate([child, cand])
-                dist = np.concatenate([dist, np.hypot(*(self.nodes[cand] - p).T)])
-        order = np.argsort(child, kind="stable")
-        return child[order], dist[order]
-
-
-@dataclass(eq=False)
 class StateSpace:
     """One state of one footprint: its clusters, free space, road map and edge list."""
 
@@ -197,15 +153,15 @@ def _segments_near(p: np.ndarray, q: np.ndarray, boxes: np.ndarray) -> np.ndarra
 
 
 def _match(old: np.ndarray, new: np.ndarray) -> np.ndarray:
-    """For each row of `old`, the index of the equal row of `new` (-1 if none); both sorted
-    lexicographically by (x, y), as road map nodes are."""
+    """For each row of `old`, the index of the equal row of `new` (-1 if none)."""
     if len(old) == 0 or len(new) == 0:
         return np.full(len(old), -1, dtype=np.int64)
     ko = old[:, 0] + 1j * old[:, 1]
     kn = new[:, 0] + 1j * new[:, 1]
-    pos = np.searchsorted(kn, ko)
-    pos = np.minimum(pos, len(kn) - 1)
-    return np.where(kn[pos] == ko, pos, -1).astype(np.int64)
+    order = np.argsort(kn, kind="stable")  # complex numbers sort by (real, imag)
+    sk = kn[order]
+    pos = np.minimum(np.searchsorted(sk, ko), len(sk) - 1)
+    return np.where(sk[pos] == ko, order[pos], -1).astype(np.int64)
 
 
 def _sectors(xy: np.ndarray, boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -274,14 +230,16 @@ class FootprintSpace:
             for a, b in zip(self._ptr[:-1], self._ptr[1:], strict=True)
         ]).reshape(-1, 4)
         self._grown: dict[int, shapely.Geometry] = {}
+        self._blocks: dict[tuple[int, ...], shapely.Geometry] = {}
         self._disk_xy: np.ndarray | None = None
         self._disk_r: np.ndarray | None = None
         self._clusters: dict[frozenset[int], _Cluster] = {}
-        self._tile_cache: dict[tuple, np.ndarray] = {}
+        self._tile_cache: dict[tuple, TileMesh] = {}
         self._states: OrderedDict[frozenset[int], StateSpace] = OrderedDict()
         self._grid(int(shapely.get_num_coordinates(self._pieces).sum()) if len(pieces) else 0)
         self.stats: dict = {"pieces_s": time.perf_counter() - t0, "built": 0, "derived": 0,
-                            "fallback_triangulations": 0, "updates_s": [], "build_s": []}
+                            "fallback_triangulations": 0, "updates_s": [], "build_s": [],
+                            "lazy": 0}
 
     # -- pieces and clusters ----------------------------------------------------------------------
 
@@ -306,17 +264,28 @@ class FootprintSpace:
         idx = idx[np.argsort(-self._disk_r[idx], kind="stable")[:_MAX_DISKS]]
         return self._disk_xy[idx], self._disk_r[idx]
 
-    def _cluster(self, key: frozenset[int], parts: Sequence[np.ndarray] | None = None
-                 ) -> _Cluster:
-        """The cluster of these members (cached): the union of `parts` (unchanged clusters'
-        unions and new members' pieces; default: every member's pieces). Uniting with the
-        unions already made leaves their vertices where they were, away from the new pieces."""
+    def _block_union(self, members: tuple[int, ...]) -> shapely.Geometry:
+        """The union of the pieces of some members of one block of obstacle indices (cached)."""
+        g = self._blocks.get(members)
+        if g is None:
+            g = self._blocks[members] = checked_union(
+                np.concatenate([self.pieces_of(i) for i in members]), self.eps)
+        return g
+
+    def _cluster(self, key: frozenset[int]) -> _Cluster:
+        """The cluster of these members (cached): the union of its members' pieces, taken per
+        fixed block of obstacle indices and then over the blocks, so that its geometry depends
+        on the members only (never on the order they came in) and a new member costs the union
+        of its block and of the blocks' unions."""
         cl = self._clusters.get(key)
         if cl is not None:
             return cl
-        if parts is None:
-            parts = [self.pieces_of(i) for i in sorted(key)]
-        geom = checked_union(np.concatenate(parts), self.eps)
+        by_block: dict[int, list[int]] = {}
+        for i in sorted(key):
+            by_block.setdefault(i // _UNION_BLOCK, []).append(i)
+        blocks = [self._block_union(tuple(m)) for m in by_block.values()]
+        geom = blocks[0] if len(blocks) == 1 else checked_union(np.array(blocks, dtype=object),
+                                                                self.eps)
         shapely.prepare(geom)
         shrunk = geom.buffer(-self.eps, join_style="mitre")
         corners = reflex_corners(shapely.difference(self.box, geom))
@@ -358,15 +327,9 @@ class FootprintSpace:
                 out.append(kept[items[0]])
                 continue
             key: set[int] = set()
-            parts: list[np.ndarray] = []
             for i in items:
-                if i < k:
-                    key |= kept[i].key
-                    parts.append(np.array([kept[i].geom], dtype=object))
-                else:
-                    key.add(loose_list[i - k])
-                    parts.append(self.pieces_of(loose_list[i - k]))
-            out.append(self._cluster(frozenset(key), parts))
+                key |= kept[i].key if i < k else {loose_list[i - k]}
+            out.append(self._cluster(frozenset(key)))
         return tuple(sorted(out, key=lambda c: min(c.key)))
 
     # -- tiles ------------------------------------------------------------------------------------
@@ -402,6 +365,10 @@ class FootprintSpace:
         live = {c.key for s in self._states.values() for c in s.clusters}
         if len(self._clusters) > 4 * len(live) + 64:
             self._clusters = {k: v for k, v in self._clusters.items() if k in live}
+        if len(self._blocks) > 4 * len(live) + 256:
+            keep = {tuple(sorted(i for i in k if i // _UNION_BLOCK == b))
+                    for k in live for b in {i // _UNION_BLOCK for i in k}}
+            self._blocks = {k: v for k, v in self._blocks.items() if k in keep}
 
     # -- states -----------------------------------------------------------------------------------
 
@@ -429,6 +396,78 @@ class FootprintSpace:
             self._states.popitem(last=False)
         self._trim_tiles()
         return st
+
+    # -- queries that may not need the state's own road map ---------------------------------------
+    #
+    # A kept state whose obstacles are a subset of the wanted ones has a larger free space, so
+    # its cheapest path is a lower bound; when that path (and its two ends) stays clear of every
+    # added obstacle's grown shape by more than the visibility tolerance, it is feasible here
+    # too, hence the cheapest here. Only a path that comes near an added obstacle needs the
+    # state itself (derived then, with every change since the subset state at once).
+
+    def _subset_base(self, present: frozenset[int]) -> StateSpace | None:
+        best = None
+        for st in self._states.values():
+            if st.present <= present and (best is None or len(st.present) > len(best.present)):
+                best = st
+        return best
+
+    def _clear_of(self, added: Sequence[int], geoms: np.ndarray) -> bool:
+        """Every geometry farther than the pad from every added obstacle's grown shape."""
+        if not len(added):
+            return True
+        b = _expand(self._bounds[list(added)], self.pad)
+        lo, hi = shapely.bounds(geoms)[:, :2], shapely.bounds(geoms)[:, 2:]
+        near_a, near_g = np.nonzero((lo[:, None, 0] <= b[None, :, 2])
+                                    & (hi[:, None, 0] >= b[None, :, 0])
+                                    & (lo[:, None, 1] <= b[None, :, 3])
+                                    & (hi[:, None, 1] >= b[None, :, 1]))
+        if not len(near_a):
+            return True
+        grown = np.array([self.grown(added[j]) for j in near_g], dtype=object)
+        return not np.any(shapely.dwithin(geoms[near_a], grown, self.pad))
+
+    def path(self, present: frozenset[int], a, b, cost=None) -> tuple[np.ndarray, float]:
+        """Roadmap.path in the state with these obstacles present (NoPath as it would raise)."""
+        present = frozenset(present)
+        st = self._states.get(present)
+        if st is None:
+            base = self._subset_base(present)
+            if base is not None:
+                added = sorted(present - base.present)
+                if self._clear_of(added, shapely.points([a, b])):
+                    pts, length = base.roadmap.path(a, b, cost)  # NoPath holds here too
+                    if self._clear_of(added, np.array([shapely.linestrings(pts)])):
+                        self.stats["lazy"] += 1
+                        return pts, length
+            st = self.state(present)
+        else:
+            self._states.move_to_end(present)
+        return st.roadmap.path(a, b, cost)
+
+    def distances(self, present: frozenset[int], a, targets: np.ndarray, cost=None
+                  ) -> np.ndarray:
+        """Roadmap.distances_from in the state with these obstacles present."""
+        present = frozenset(present)
+        targets = np.asarray(targets, dtype=float).reshape(-1, 2)
+        st = self._states.get(present)
+        if st is None:
+            # (with a cost other than length a polyline's cost need not be its moves' sum as the
+            # search counts them, so only length takes the shortcut)
+            base = self._subset_base(present) if cost is None else None
+            if base is not None:
+                added = sorted(present - base.present)
+                if self._clear_of(added, shapely.points(np.vstack([a, targets]))):
+                    paths = base.roadmap.paths_from(a, targets, cost)  # NoPath holds here too
+                    found = [p for p in paths if p is not None]
+                    lines = np.array([shapely.linestrings(p[0]) for p in found], dtype=object)
+                    if self._clear_of(added, lines):
+                        self.stats["lazy"] += 1
+                        return np.array([np.inf if p is None else p[1] for p in paths])
+            st = self.state(present)
+        else:
+            self._states.move_to_end(present)
+        return st.roadmap.distances_from(a, targets, cost)
 
     def _free_space(self, present: frozenset[int], clusters: Sequence[_Cluster]) -> FreeSpace:
         members = sorted(present)
@@ -462,6 +501,7 @@ class FootprintSpace:
         )
 
     def _build(self, present: frozenset[int], parent: StateSpace | None) -> StateSpace:
+        check_time("updating the configuration space for the next state")
         timing: dict[str, float] = {}
         t0 = time.perf_counter()
         clusters = self._clusters_for(present, parent)
@@ -550,11 +590,19 @@ class FootprintSpace:
 
         # which nodes a change may concern, and the parent's edges that still hold
         t1 = time.perf_counter()
-        changed = _expand(self._bounds[added + removed], self.pad)
+        # a corner changed when it is new, or lies on an added or removed obstacle's grown
+        # shape (within the pad); any other keeps its place and its tangent directions (an
+        # edge of its ring may have been cut short, never turned)
+        changed_boxes = _expand(self._bounds[added + removed], self.pad)
         touched = np.ones(n, dtype=bool)
         child_of_parent = _match(parent.roadmap.nodes, nodes)
         touched[child_of_parent[child_of_parent >= 0]] = False
-        touched |= _in_boxes(nodes, changed)
+        near = np.flatnonzero(_in_boxes(nodes, changed_boxes) & ~touched)
+        if len(near):
+            grown = np.array([self.grown(i) for i in added + removed], dtype=object)
+            close = shapely.dwithin(shapely.points(nodes[near])[:, None], grown[None, :],
+                                    self.pad).any(axis=1)
+            touched[near[close]] = True
         if removed:
             touched[vertex_node[pinch_vertex]] = True  # pinch points look every way
         ok_parent = child_of_parent >= 0
@@ -579,34 +627,29 @@ class FootprintSpace:
         # new edges: every way from the nodes a change concerns; where obstacles went, the
         # others look towards those places only
         t1 = time.perf_counter()
-        if removed:
+        if removed:  # corners inside a removed obstacle's box look every way as well
+            removed_boxes = _expand(self._bounds[removed], self.pad)
+            full = touched | _in_boxes(nodes, removed_boxes)
             pairs = [self._walk_all(roadmap, tri, c_vertex, c_xy, c_prev, c_next,
-                                    pinch_vertex, touched),
+                                    pinch_vertex, full),
                      self._walk_towards(roadmap, tri, c_vertex, c_xy, c_prev, c_next,
-                                        ~touched, _expand(self._bounds[removed], self.pad))]
+                                        ~full, removed_boxes)]
         else:
             pairs = [self._tangent_pairs(c_xy, c_prev, c_next, occ_node,
                                          vertex_node[pinch_vertex], nodes, touched, disk_xy,
                                          disk_r)]
         timing["candidates"] = time.perf_counter() - t1
         t1 = time.perf_counter()
-        cand = np.concatenate(pairs)
-        if len(cand):
-            cand = np.unique(cand, axis=0)
+        cand = _unique_pairs(np.concatenate(pairs), n)
         if len(cand) and len(kept_edges):
             known = np.isin(cand[:, 0] * n + cand[:, 1], kept_edges[:, 0] * n + kept_edges[:, 1])
             cand = cand[~known]
         ok = roadmap.visible(nodes[cand[:, 0]], nodes[cand[:, 1]]) if len(cand) else np.zeros(
             0, bool)
         edges = np.concatenate([kept_edges, cand[ok]]) if len(cand) else kept_edges
-        edges = np.unique(edges, axis=0) if len(edges) else np.zeros((0, 2), dtype=np.int64)
+        edges = _unique_pairs(edges, n)
         roadmap.graph = _graph(nodes, edges)
         timing["exact-visibility"] = time.perf_counter() - t1
-        if added and not removed:
-            roadmap._source = _SightSource(
-                cache=parent.roadmap._sight_cache, child_of_parent=child_of_parent,
-                added=_expand(self._bounds[added], self.pad),
-                touched=np.flatnonzero(touched), node_vertex=node_vertex)
         timing["total"] = time.perf_counter() - t0
         roadmap.stats = {
             "corners": int(len(c_xy_all)),
@@ -638,40 +681,49 @@ class FootprintSpace:
     def _tangent_pairs(self, c_xy, c_prev, c_next, occ_node, pinch_nodes, nodes, touched,
                        disk_xy, disk_r) -> np.ndarray:
         """Candidate pairs from the touched nodes to every node: lines tangent at both ends
-        (pinch points need no tangent), less those a disk inside `blocked` certainly hides."""
+        (pinch points need no tangent), less those a disk inside `blocked` certainly hides.
+
+        The tangent test at the far end goes first, over every corner, as two affine maps of
+        the source position with a slack wider than their rounding error (a corner on a finely
+        curved outline looks along a narrow double cone, so few are left); the exact test at
+        both ends then decides on those few."""
         up, un = _unit(c_prev - c_xy), _unit(c_next - c_xy)
-        tol = self.tol
+        tol2 = self.tol ** 2
+        # sp[s, v] = cross(u_s - v, up_v) = u_s . (up_v.y, -up_v.x) - cross(v, up_v)
+        lift_p = np.stack([up[:, 1], -up[:, 0], -(c_xy[:, 0] * up[:, 1] - c_xy[:, 1] * up[:, 0])])
+        lift_n = np.stack([un[:, 1], -un[:, 0], -(c_xy[:, 0] * un[:, 1] - c_xy[:, 1] * un[:, 0])])
+        scale = 1.0 + (float(np.abs(c_xy).max()) if len(c_xy) else 0.0)
+        loose = self.tol * self.diameter + 64.0 * np.finfo(float).eps * scale
         out = []
         src_occ = np.flatnonzero(touched[occ_node]) if len(occ_node) else np.zeros(0, int)
         for a in range(0, len(src_occ), _PAIR_CHUNK):
             s = src_occ[a:a + _PAIR_CHUNK]
-            dx = c_xy[s, 0:1] - c_xy[None, :, 0]  # source minus target
-            dy = c_xy[s, 1:2] - c_xy[None, :, 1]
-            slack = tol * np.hypot(dx, dy)
-            at_v = _tangent_xy(dx, dy, up[None, :, :], un[None, :, :], slack)
-            at_u = _tangent_xy(-dx, -dy, up[s, None, :], un[s, None, :], slack)
-            r, c = np.nonzero(at_v & at_u)
-            out.append(np.stack([occ_node[s[r]], occ_node[c]], axis=1))
+            sp = _affine(c_xy[s], lift_p)
+            sn = _affine(c_xy[s], lift_n)
+            # superset of (sp sn >= 0 or min(|sp|, |sn|) <= loose): |sp|, |sn| <= diameter
+            np.multiply(sp, sn, out=sp)
+            r, c = np.nonzero(sp >= -loose * self.diameter)
+            ex = c_xy[c, 0] - c_xy[s[r], 0]  # from the source to the target
+            ey = c_xy[c, 1] - c_xy[s[r], 1]
+            ok = (_tangent_sq(-ex, -ey, up[c], un[c], tol2)
+                  & _tangent_sq(ex, ey, up[s[r]], un[s[r]], tol2))
+            out.append(np.stack([occ_node[s[r[ok]]], occ_node[c[ok]]], axis=1))
             if len(pinch_nodes):  # a line to a pinch point needs a tangent at the source only
-                dpx = c_xy[s, 0:1] - nodes[None, pinch_nodes, 0]
-                dpy = c_xy[s, 1:2] - nodes[None, pinch_nodes, 1]
-                ok = _tangent_xy(-dpx, -dpy, up[s, None, :], un[s, None, :],
-                                 tol * np.hypot(dpx, dpy))
-                r, c = np.nonzero(ok)
+                ex = nodes[None, pinch_nodes, 0] - c_xy[s, 0:1]
+                ey = nodes[None, pinch_nodes, 1] - c_xy[s, 1:2]
+                r, c = np.nonzero(_tangent_sq(ex, ey, up[s, None, :], un[s, None, :], tol2))
                 out.append(np.stack([occ_node[s[r]], pinch_nodes[c]], axis=1))
         src_pinch = pinch_nodes[touched[pinch_nodes]] if len(pinch_nodes) else pinch_nodes
         for a in range(0, len(src_pinch), _PAIR_CHUNK):
             s = src_pinch[a:a + _PAIR_CHUNK]
-            dx = nodes[s, 0:1] - c_xy[None, :, 0]
+            dx = nodes[s, 0:1] - c_xy[None, :, 0]  # from each corner back to the pinch point
             dy = nodes[s, 1:2] - c_xy[None, :, 1]
-            ok = _tangent_xy(dx, dy, up[None, :, :], un[None, :, :], tol * np.hypot(dx, dy))
-            r, c = np.nonzero(ok)
+            r, c = np.nonzero(_tangent_sq(dx, dy, up[None, :, :], un[None, :, :], tol2))
             out.append(np.stack([s[r], occ_node[c]], axis=1))
             out.append(np.stack(np.meshgrid(s, pinch_nodes, indexing="ij"), axis=-1
                                 ).reshape(-1, 2))
-        pairs = _pairs(out)
+        pairs = _unique_pairs(_pairs(out), len(nodes))
         if len(pairs):
-            pairs = np.unique(pairs, axis=0)
             pairs = pairs[~_occluded(nodes[pairs[:, 0]], nodes[pairs[:, 1]], disk_xy, disk_r)]
         return pairs
 
@@ -744,12 +796,29 @@ def _inscribed_disks(pieces: np.ndarray, eps: float, scale: float
     return shapely.get_coordinates(centres), radius
 
 
-def _tangent_xy(dx, dy, up, un, slack) -> np.ndarray:
+def _affine(xy: np.ndarray, lift: np.ndarray) -> np.ndarray:
+    """(S, T) array of x * lift[0] + y * lift[1] + lift[2] for each point (x, y) of xy (S, 2):
+    elementwise, not a matrix product (a threaded BLAS call costs more at these sizes)."""
+    out = np.multiply.outer(xy[:, 0], lift[0])
+    out += np.multiply.outer(xy[:, 1], lift[1])
+    out += lift[2]
+    return out
+
+
+def _tangent_sq(dx, dy, up, un, tol2: float) -> np.ndarray:
     """A line in direction (dx, dy) from the other end leaves both ring neighbours (unit
-    vectors up, un from the corner) on one closed side, within `slack`: it is tangent there."""
-    sp = dx * up[..., 1] - dy * up[..., 0]
-    sn = dx * un[..., 1] - dy * un[..., 0]
-    return (sp * sn >= 0) | (np.minimum(np.abs(sp), np.abs(sn)) <= slack)
+    vectors up, un from the corner) on one closed side, within tol radians: it is tangent
+    there. (dx, dy) has the shape of the result; the slack is compared squared."""
+    sp = dx * up[..., 1]
+    sp -= dy * up[..., 0]
+    sn = dx * un[..., 1]
+    sn -= dy * un[..., 0]
+    ok = sp * sn >= 0
+    bad = ~ok
+    if bad.any():
+        m = np.minimum(np.abs(sp[bad]), np.abs(sn[bad]))
+        ok[bad] = m * m <= tol2 * (dx[bad] ** 2 + dy[bad] ** 2)
+    return ok
 
 
 def _occluded(p: np.ndarray, q: np.ndarray, disk_xy: np.ndarray, disk_r: np.ndarray
@@ -803,17 +872,17 @@ class _OutOfStep(Exception):
     """roadmap.Roadmap has a required field this module does not know how to fill."""
 
 
-# Fields of roadmap.Roadmap that hold build_roadmap's own occlusion filter: left empty here
-# (StateRoadmap brings its own filter). A filter only ever drops certainly hidden candidates.
+# Fields roadmap.Roadmap has had for its occlusion filter: one this module does not fill is left
+# empty (a filter only ever drops certainly hidden candidates, so an empty one costs time only).
 _EMPTY_FILTERS = {"_disk_xy": lambda: np.empty((0, 2)), "_disk_r": lambda: np.empty(0),
                   "_disk_tree": lambda: None}
 
 
-def _make_roadmap(**parts) -> StateRoadmap:
-    """A StateRoadmap from the parts build_roadmap also makes (kept in step with its fields:
-    an unknown required field raises _OutOfStep, and the state is then built whole)."""
+def _make_roadmap(**parts) -> Roadmap:
+    """A Roadmap from the parts build_roadmap also makes (kept in step with its fields: an
+    unknown required field raises _OutOfStep, and the state is then built whole)."""
     kwargs = {}
-    for f in dataclasses.fields(StateRoadmap):
+    for f in dataclasses.fields(Roadmap):
         if f.name in parts:
             kwargs[f.name] = parts[f.name]
         elif f.default is not dataclasses.MISSING or (
@@ -823,7 +892,15 @@ def _make_roadmap(**parts) -> StateRoadmap:
             kwargs[f.name] = _EMPTY_FILTERS[f.name]()
         else:
             raise _OutOfStep(f"roadmap.Roadmap field {f.name!r} is new to incremental.py")
-    return StateRoadmap(**kwargs)
+    return Roadmap(**kwargs)
+
+
+def _unique_pairs(pairs: np.ndarray, n: int) -> np.ndarray:
+    """Distinct rows of an (m, 2) array of node indices below n, in (first, second) order."""
+    if len(pairs) == 0:
+        return np.zeros((0, 2), dtype=np.int64)
+    key = np.unique(pairs[:, 0].astype(np.int64) * n + pairs[:, 1])
+    return np.stack([key // n, key % n], axis=1)
 
 
 def _pairs(parts: list[np.ndarray]) -> np.ndarray:
@@ -880,11 +957,30 @@ class StateSpaces:
                     self._static.popitem(last=False)
             self._static.move_to_end(key)
             return LegSpace(state, hit.free, hit.roadmap, obstacles, footprint)
+        st = self._space(state).state(self._present(state))
+        return LegSpace(state, st.free, st.roadmap, obstacles, footprint)
+
+    def _space(self, state: State) -> FootprintSpace:
+        footprint = footprint_of(self.scene, state)
         fkey = _footprint_key(footprint)
         space = self._spaces.get(fkey)
         if space is None:
             space = self._spaces[fkey] = FootprintSpace(self.scene, self.settings, footprint,
                                                         self._avoided, keep=self.keep)
-        present = frozenset(self._index[i] for i in state.present if i in self._index)
-        st = space.state(present)
-        return LegSpace(state, st.free, st.roadmap, obstacles, footprint)
+        return space
+
+    def _present(self, state: State) -> frozenset[int]:
+        return frozenset(self._index[i] for i in state.present if i in self._index)
+
+    def path(self, state: State, a, b, cost=None) -> tuple[np.ndarray, float]:
+        """The cheapest collision-free path of a leg in `state` (Roadmap.path's answer, NoPath
+        included), from a kept state's road map where that answer provably holds."""
+        if not self.incremental:
+            return self.get(state).roadmap.path(a, b, cost)
+        return self._space(state).path(self._present(state), a, b, cost)
+
+    def distances(self, state: State, a, targets: np.ndarray, cost=None) -> np.ndarray:
+        """Least costs from a to every target in `state` (Roadmap.distances_from's answer)."""
+        if not self.incremental:
+            return self.get(state).roadmap.distances_from(a, targets, cost)
+        return self._space(state).distances(self._present(state), a, targets, cost)

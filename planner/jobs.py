@@ -7,6 +7,7 @@ finds a route file can check it is looking at one consistent set.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -38,6 +39,7 @@ class JobOutcome:
     message: str | None = None
     files: list[Path] = field(default_factory=list)
     result: PlanResult | None = None
+    write_error: bool = False  # planned, but the outputs could not be written (disk full...)
 
 
 def _named(scene_path: Path, message: str) -> str:
@@ -113,12 +115,22 @@ def run_job(
     }
     if companions:
         route = replace(route, extra={**route.extra, "files": companions})
-    out_dir.mkdir(parents=True, exist_ok=True)
-    for path, text in texts.items():
-        atomic_write(path, text)
-        outcome.files.append(path)
     route_path = output_path(out_dir, stem, ".route.yaml")
-    atomic_write(route_path, dump_route(route, result.settings.resolution))
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        for path, text in texts.items():
+            atomic_write(path, text)
+            outcome.files.append(path)
+        atomic_write(route_path, dump_route(route, result.settings.resolution))
+    except OSError as exc:
+        # no route file, no hand-off: take back the companions this job wrote (ours alone)
+        for path in outcome.files:
+            with contextlib.suppress(OSError):
+                path.unlink()
+        return JobOutcome("failed", EXIT_FAILED, _named(
+            scene_path, f"planned, but the outputs cannot be written into {out_dir}: "
+            f"{exc.strerror or exc}; nothing was written for this scene (fix: free space in, "
+            f"or give write access to, {out_dir})"), write_error=True)
     outcome.files.append(route_path)
     outcome.result = replace(result, route=route)
     return outcome

@@ -11,6 +11,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from .budget import check_time, within_time_budget
 from .config import Settings, effective_config_sha256
 from .cspace import FreeSpace, build_free_space, free_space_key
 from .errors import PlanningError, SceneError
@@ -82,12 +83,15 @@ def free_space_and_roadmap(
         if hit is not None:
             return hit
     free = build_free_space(scene, settings)
+    check_time("building the free space")
     roadmap = build_roadmap(free)
+    check_time("building the road map")
     if cache is not None:
         cache.put(key, (free, roadmap))
     return free, roadmap
 
 
+@within_time_budget
 def plan_scene(
     scene: Scene, settings: Settings, *, cache: PlanCache | None = None
 ) -> PlanResult:
@@ -113,7 +117,7 @@ def plan_scene(
     order = list(scene.targets)
     report = None
     if spaces is not None and scene.sequence == "shortest":
-        order = [scene.targets[k] for k in order_with_states(scene, spaces)]
+        order = [scene.targets[k] for k in order_with_states(scene, spaces, cost=edge_cost)]
     elif scene.sequence == "shortest":  # leg costs by the road map, one search per point
         report = scene_order(scene, roadmap, cost=edge_cost, cost_name=cost_name,
                              time_budget_s=settings.limits.time_budget_s / 4)
@@ -124,14 +128,18 @@ def plan_scene(
         stops.append((FINISH, scene.finish))
     explainer = Explainer(scene, settings)
     for stop_id, point in stops:
-        leg_free, leg_roadmap, built_from = free, roadmap, {}
-        if spaces is not None:
-            space = spaces.get(tracker.state)
-            leg_free, leg_roadmap = space.free, space.roadmap
-            built_from = {"footprint": space.footprint, "obstacles": space.obstacles}
+        check_time(f"planning the leg to {stop_id}")
         try:
-            pts, _ = leg_roadmap.path(current, point, edge_cost)
+            if spaces is not None:  # in the leg's own state
+                pts, _ = spaces.path(tracker.state, current, point, edge_cost)
+            else:
+                pts, _ = roadmap.path(current, point, edge_cost)
         except NoPath as exc:
+            leg_free, built_from = free, {}
+            if spaces is not None:
+                space = spaces.get(tracker.state)
+                leg_free = space.free
+                built_from = {"footprint": space.footprint, "obstacles": space.obstacles}
             unreachable.append(
                 explainer.unreachable(exc, current_id, stop_id, leg_free, **built_from))
             continue

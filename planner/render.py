@@ -78,7 +78,9 @@ def _obstacle_geometry(obstacle: Obstacle) -> shapely.Geometry:
     if obstacle.polygon is not None:
         return shapely.Polygon(obstacle.polygon)
     c = obstacle.circle
-    return shapely.Point(c.center).buffer(c.radius, quad_segs=32)
+    # a circle too small for doubles to draw around its centre is drawn a few spacings wide
+    smallest = 64 * float(np.spacing(max(abs(c.center[0]), abs(c.center[1]), 1.0)))
+    return shapely.Point(c.center).buffer(max(c.radius, smallest), quad_segs=32)
 
 
 def frame_for(scene: Scene) -> Frame:

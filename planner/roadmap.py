@@ -510,14 +510,42 @@ def _rightward_cones(lo: np.ndarray, hi: np.ndarray
     return idx, new_lo[idx], new_hi[idx]
 
 
+def shrunk_blocked(free: FreeSpace) -> shapely.Geometry:
+    """`blocked` shrunk by eps, the set visibility tests use, valid.
+
+    A GEOS failure or an invalid result is repaired (make_valid) only when the repair still
+    covers every C-obstacle piece shrunk by twice eps (far inside the resolution pad);
+    otherwise PlanningError: no road map is built on a shape that gave up part of an obstacle.
+    """
+    blocked, eps = free.blocked, free.eps
+    if blocked.is_empty:
+        return blocked
+    try:
+        shrunk = shapely.buffer(blocked, -eps, join_style="mitre")
+        if shapely.is_valid(shrunk):
+            return shrunk
+        shrunk = shapely.make_valid(shrunk)
+    except shapely.errors.GEOSException:
+        try:
+            shrunk = shapely.make_valid(
+                shapely.buffer(shapely.make_valid(blocked), -eps, join_style="mitre"))
+        except shapely.errors.GEOSException as exc:
+            raise PlanningError("could not shrink the grown obstacles for the visibility "
+                                f"test: GEOS failed ({exc})") from exc
+    inner = shapely.buffer(free.pieces, -2 * eps, join_style="mitre")
+    if shapely.is_valid(shrunk) and np.all(shapely.covers(shrunk, inner)):
+        return shrunk
+    raise PlanningError("shrinking the grown obstacles for the visibility test would give up "
+                        "part of an obstacle; refusing to plan on it")
+
+
 def build_roadmap(free: FreeSpace) -> Roadmap:
     """The tangent visibility graph of the free space (uses free.box, blocked, region, eps)."""
     t0 = time.perf_counter()
     timing: dict[str, float] = {}
     region = free.region
     corners = reflex_corners(region)
-    shrunk = free.blocked.buffer(-free.eps, join_style="mitre") if not free.blocked.is_empty \
-        else free.blocked
+    shrunk = shrunk_blocked(free)
     shapely.prepare(shrunk)
     timing["corners"] = time.perf_counter() - t0
 

@@ -106,7 +106,9 @@ def _number_problem(path: Path_, v: Any, limits: Limits) -> Problem:
                        "NaN and infinity cannot be positions or sizes; write a plain number")
     bound = limits.max_abs_coordinate
     return Problem(path, f"{v!r} is out of range (at most {bound:g} either way)",
-                   "check the units and the decimal point")
+                   "check the units and the decimal point; the bound is limits."
+                   "max_abs_coordinate, or what the output resolution leaves exact (move the "
+                   "origin near the table, or use a coarser resolution)")
 
 
 def _check_numbers(value: Any, limits: Limits) -> None:
@@ -192,8 +194,27 @@ def _as_ring(arr: np.ndarray) -> Ring:
 # ------------------------------------------------------------------------------- the scene
 
 
-def _scene(value: Any, file: str, sha256: str, settings: Settings) -> Scene:
+def _precise_limits(value: Any, settings: Settings) -> Limits:
+    """The limits, with max_abs_coordinate lowered to what a double holds exactly enough at the
+    output resolution: the road map's tolerance (resolution * EPS_PER_RESOLUTION) must stay
+    64 rounding errors or more of the largest coordinate."""
+    from dataclasses import replace
+
+    from .config import MM_PER_UNIT
+    from .cspace import EPS_PER_RESOLUTION
+
+    units = value.get("units") if isinstance(value, dict) else None
+    units = units if isinstance(units, str) and units in MM_PER_UNIT else "mm"
+    eps = settings.in_units(units).resolution * EPS_PER_RESOLUTION
+    bound = eps / (64 * np.finfo(np.float64).eps)
     limits = settings.limits
+    if bound < limits.max_abs_coordinate:
+        limits = replace(limits, max_abs_coordinate=float(f"{bound:.2g}"))
+    return limits
+
+
+def _scene(value: Any, file: str, sha256: str, settings: Settings) -> Scene:
+    limits = _precise_limits(value, settings)
     if not isinstance(value, dict):
         raise Problem((), f"the scene must be a mapping of keys (scene: 1, travel: ..., start: "
                       f"..., targets: ...), but the file holds {kind_of(value)}",

@@ -16,9 +16,10 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from .budget import check_time
 from .incremental import StateSpaces
 from .model import FINISH, START, Point, Scene
-from .roadmap import NoPath
+from .roadmap import EdgeCost, NoPath
 from .sequence import precedence_of, shortest_order
 from .states import State, StateTracker
 
@@ -28,11 +29,12 @@ _ROUNDS = 3  # matrix rebuilds after the first; each is kept only if it improves
 
 
 class LegCosts:
-    """Leg lengths by (from, to, state key), each from one search per (from, state)."""
+    """Leg costs by (from, to, state key), each from one search per (from, state)."""
 
-    def __init__(self, scene: Scene, spaces: StateSpaces) -> None:
+    def __init__(self, scene: Scene, spaces: StateSpaces, cost: EdgeCost | None = None) -> None:
         self.scene = scene
         self.spaces = spaces
+        self.cost = cost
         self.ids = [t.id for t in scene.targets] + ([FINISH] if scene.finish is not None else [])
         pts = [t.at for t in scene.targets] + ([scene.finish] if scene.finish is not None else [])
         self.points = np.asarray(pts, dtype=float).reshape(-1, 2)
@@ -43,13 +45,15 @@ class LegCosts:
         self.searches = 0
 
     def row(self, from_id: str, state: State) -> np.ndarray:
-        """Lengths from `from_id` to every target (and finish) in `state`; inf: no path."""
+        """Least costs (lengths, or by `cost`) from `from_id` to every target (and finish) in
+        `state`; inf: no path."""
         key = (from_id, state.key)
         row = self._rows.get(key)
         if row is None:
-            roadmap = self.spaces.get(state).roadmap
+            check_time("ordering the targets")
             try:
-                row = roadmap.distances_from(self.point_of[from_id], self.points)
+                row = self.spaces.distances(state, self.point_of[from_id], self.points,
+                                            self.cost)
             except NoPath:  # the point itself is blocked in this state
                 row = np.full(len(self.points), np.inf)
             self._rows[key] = row
@@ -101,7 +105,8 @@ def _matrix(costs: LegCosts, order: Sequence[int], leaving: list[State]) -> np.n
     return m
 
 
-def order_with_states(scene: Scene, spaces: StateSpaces, *, rounds: int = _ROUNDS) -> list[int]:
+def order_with_states(scene: Scene, spaces: StateSpaces, *, cost: EdgeCost | None = None,
+                      rounds: int = _ROUNDS) -> list[int]:
     """The visiting order (target indices) for `sequence: shortest` with state-dependent legs.
 
     Constraints (`after`, `first`, `last`) always hold; with a given order that keeps them the
@@ -110,7 +115,7 @@ def order_with_states(scene: Scene, spaces: StateSpaces, *, rounds: int = _ROUND
     n = len(scene.targets)
     if n <= 1:
         return list(range(n))
-    costs = LegCosts(scene, spaces)
+    costs = LegCosts(scene, spaces, cost)
     prec = precedence_of(scene.targets)
     has_finish = scene.finish is not None
 

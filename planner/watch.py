@@ -414,6 +414,12 @@ class Watcher:
                 self._reload_config(sig, changed_at)
             else:
                 self._handle_scene(key, sig, changed_at)
+        except OSError as exc:  # OUT is full, read-only or gone: say so, try again later
+            if key == _CONFIG:
+                LOG.error("config: cannot be read (%s); the daemon goes on", exc.strerror or exc)
+            else:
+                self._cannot_write(key, sig, changed_at, f"{key}: {exc.filename or self.out}: "
+                                   f"{exc.strerror or exc}")
         except Exception as exc:  # a bug of ours or a file system error: log it, go on
             LOG.error("%s: internal error while handling it (%s: %s); the daemon goes on",
                       "config" if key == _CONFIG else key, type(exc).__name__, _one_line(exc))
@@ -541,6 +547,9 @@ class Watcher:
                                        "complete before reporting it"))
             self.settler.retry(name, sig, changed_at, changed_at + self.options.parse_wait_s)
             return
+        if outcome.write_error:
+            self._cannot_write(name, sig, changed_at, outcome.message or name)
+            return
         if outcome.state not in ("planned", "incomplete"):
             self._failed(name, stem, sha, outcome)
             return
@@ -562,6 +571,19 @@ class Watcher:
                  len(route.legs), route.length, route.units, elapsed, reused, ", ".join(files))
         for item in route.unreachable:
             LOG.info("  %s: unreachable %s: %s", name, item.id, _one_line(item.reason))
+
+    def _cannot_write(self, name: str, sig: Signature, changed_at: float, message: str) -> None:
+        """OUT cannot take files now (full, read-only, gone): report it and try the scene again
+        after the rescan time (sooner if it changes); nothing half-written stays behind."""
+        delay = self.options.rescan_s
+        record = self.board.get(name)
+        self.board.put(SceneRecord(
+            name, "waiting", utc_stamp(), stem=self._stem(name),
+            scene_sha256=record.scene_sha256 if record is not None else None,
+            config_files_sha256=self.config_sha,
+            message=f"{_one_line(message)}; trying again in {delay:g} s"))
+        LOG.error("%s; trying again in %g s", _one_line(message), delay)
+        self.settler.retry(name, sig, changed_at, time.monotonic() + delay)
 
     def _failed(self, name: str, stem: str, sha: str | None, outcome: JobOutcome) -> None:
         """The scene cannot be planned: no output of it may stay in OUT; the error file says why."""

@@ -30,6 +30,7 @@ import numpy as np
 import shapely
 import yaml
 
+from adapters import enabled_adapters
 from planner.config import Limits, Settings, load_settings
 from planner.errors import ConfigError, PlanningError, SceneError, UnsafeRouteError, format_error
 from planner.model import Route, Scene
@@ -239,17 +240,21 @@ def _pt(p) -> list[float]:
 def geometric_scene(rnd: random.Random) -> dict:
     """A scene dict with degenerate geometry: touching, overlapping and near-touching obstacles,
     passages exactly as wide as the head, points on grown boundaries, tiny and huge numbers."""
-    s = rnd.choice([1.0, 1.0, 1.0, 10.0, 100.0, 1e-3, 1e-6, 1e-9, 1e4, 1e6])  # feature size
+    s = rnd.choice([1.0, 1.0, 1.0, 10.0, 100.0, 1e-3, 1e-6, 1e-9, 1e3, 1e4])  # feature size
     name = rnd.choice(sorted(_FOOTPRINTS))
     foot = np.array(_FOOTPRINTS[name], dtype=float) * s * rnd.choice([1.0, 5.0, 20.0])
     fx0, fy0 = foot.min(axis=0)
     fx1, fy1 = foot.max(axis=0)
     margin = rnd.choice([0.0, 1e-9 * s, 0.1 * s, 1.0 * s, 3.0 * s, 1e-3])
     width, depth = s * rnd.uniform(40, 300), s * rnd.uniform(40, 300)
-    top = 1e9 - max(width, depth)  # every number stays within max_abs_coordinate
-    ox = rnd.choice([0.0, 0.0, 0.0, -width / 2, 1e6, 1e8, top, -top - width])
-    oy = rnd.choice([0.0, 0.0, ox, 1e7, -1e9 + 1])
-    oy = min(max(oy, -1e9), 1e9 - depth)
+    # mostly where tables are; now and then near or past what the loader accepts (1e9, and
+    # less where the output resolution would not be exact: 7e7 mm at 0.001 mm)
+    units = rnd.choice(["mm", "mm", "inch"])
+    far = rnd.random() < 0.15
+    top = (1e9 if far else 6.9e7 / (25.4 if units == "inch" else 1.0)) - max(width, depth)
+    ox = rnd.choice([0.0, 0.0, 0.0, -width / 2, 1e5, 1e6, top, -top - width])
+    oy = rnd.choice([0.0, 0.0, ox, 1e4, -top])
+    oy = min(max(oy, -top - depth), top)
 
     def point() -> list[float]:
         return [ox + rnd.uniform(0, width), oy + rnd.uniform(0, depth)]
@@ -332,13 +337,23 @@ def geometric_scene(rnd: random.Random) -> dict:
         else:
             targets.append(point())
     scene: dict = {
-        "scene": 1, "units": rnd.choice(["mm", "mm", "inch"]),
+        "scene": 1, "units": units,
         "travel": {"x": [ox, ox + width], "y": [oy, oy + depth]},
         "head": {"footprint": foot.tolist(), "margin": margin},
         "obstacles": obstacles, "start": start, "targets": targets,
     }
     if rnd.random() < 0.5:
         scene["finish"] = list(start) if rnd.random() < 0.5 else point()
+    if rnd.random() < 0.3:  # a scene that changes as the job runs (after, until, carry)
+        names = ["start"] + [f"t{k + 1}" for k in range(len(targets))]
+        for ob in obstacles:
+            if rnd.random() < 0.4:
+                ob[rnd.choice(["after", "until"])] = rnd.choice(names)
+        for k, at in enumerate(targets):
+            if rnd.random() < 0.4:
+                w, h = (fx1 - fx0) * rnd.uniform(0.5, 3), (fy1 - fy0) * rnd.uniform(0.5, 3)
+                carry = [[fx0, fy0], [fx0 + w, fy0], [fx0 + w, fy0 + h], [fx0, fy0 + h]]
+                targets[k] = {"at": at, "carry": rnd.choice([carry, "none"])}
     if obstacles and rnd.random() < 0.2:
         scene["head"]["ride_height"] = 10.0 * s
     return scene
@@ -426,15 +441,44 @@ def case(kind: str, seed: int) -> Case:
 # -------------------------------------------------------------- outside safety check
 
 
-def _avoided(scene: Scene, route_leg_states: Any = None) -> list:
+def _leg_worlds(route: Route, scene: Scene) -> list[tuple[shapely.Geometry, list]]:
+    """Per leg: the footprint it moves with and the obstacles present, read from the contract
+    (docs/scene-format.md, "Scenes that change"): the state after the leg's first point."""
     ride = scene.head.ride_height
-    return [o for o in scene.obstacles
-            if o.height is None or ride is None or o.height >= ride]
+    base = shapely.Polygon(scene.head.footprint)
+    carry_of = {t.id: t.carry for t in scene.targets}
+    first_leaving: dict[str, int] = {}
+    first_arriving: dict[str, int] = {}
+    for i, leg in enumerate(route.legs):
+        first_leaving.setdefault(leg.from_id, i)
+        first_arriving.setdefault(leg.to_id, i)
+    never = len(route.legs) + 1
+    worlds = []
+    carried = None
+    for i, leg in enumerate(route.legs):
+        carry = carry_of.get(leg.from_id)
+        if carry == "none":
+            carried = None
+        elif carry is not None:
+            carried = shapely.Polygon(carry)
+        foot = base if carried is None else shapely.union(base, carried)
+        present = []
+        for o in scene.obstacles:
+            if not (o.height is None or ride is None or o.height >= ride):
+                continue  # passed over
+            since = 0 if o.after in (None, "start") else first_leaving.get(o.after, never)
+            upto = never if o.until is None else -1 if o.until == "start" else \
+                first_arriving.get(o.until, never)
+            if since <= i <= upto:
+                present.append(o)
+        worlds.append((foot, present))
+    return worlds
 
 
 def outside_violations(route: Route, scene: Scene, tol: float) -> list[str]:
-    """Why `route` is unsafe for a scene without changing obstacles or carried parts, checked
-    with shapely/GEOS alone (no planner code): an empty list means safe.
+    """Why `route` is unsafe for `scene`, checked with shapely/GEOS alone (no planner code):
+    an empty list means safe. Obstacles that come and go and carried outlines are taken leg by
+    leg as the contract says.
 
     The area a translated convex set sweeps along a segment is the convex hull of its two end
     placements (Minkowski sum of convex sets is convex: de Berg et al., Computational Geometry,
@@ -443,12 +487,15 @@ def outside_violations(route: Route, scene: Scene, tol: float) -> list[str]:
     """
     problems: list[str] = []
     t = scene.travel
-    foot = shapely.Polygon(scene.head.footprint)
-    tris = shapely.get_parts(shapely.constrained_delaunay_triangles(foot))
-    tri_xy = [np.asarray(tr.exterior.coords)[:3] for tr in tris]
     margin = scene.head.margin
-    obstacles = _avoided(scene)
-    for i, leg in enumerate(route.legs):
+    pieces: dict[bytes, list[np.ndarray]] = {}
+    for i, (leg, (foot, obstacles)) in enumerate(zip(route.legs, _leg_worlds(route, scene),
+                                                     strict=True)):
+        key = shapely.to_wkb(foot)
+        if key not in pieces:
+            tris = shapely.get_parts(shapely.constrained_delaunay_triangles(foot))
+            pieces[key] = [np.asarray(tr.exterior.coords)[:3] for tr in tris]
+        tri_xy = pieces[key]
         pts = np.asarray(leg.points, dtype=float)
         if not np.isfinite(pts).all():
             problems.append(f"leg {i}: non-finite point")
@@ -555,8 +602,12 @@ def run_case(c: Case, settings: Settings, hang_s: float = 60.0) -> Outcome:
             # the route as a machine-side script reads it back from the file
             written = load_route(dump_route(result.route, result.settings.resolution))
             problems = outside_violations(written, scene, check_tolerance(scene, settings))
+            for adapter in enabled_adapters(settings.adapters,
+                                            adapter_settings=settings.adapter_settings):
+                own = settings.adapter_settings.get(adapter.name, {})
+                adapter.write(result.route, own, result)  # every file beside the route too
         except _Hang:
-            return Outcome(c, "hang", f"checking ran past {hang_s} s",
+            return Outcome(c, "hang", f"checking or writing ran past {hang_s} s",
                            time.perf_counter() - started)
         except Exception as exc:
             return Outcome(c, "crash", "".join(traceback.format_exception(exc)),

@@ -10,6 +10,7 @@ the part that just appeared) is caught by it.
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from dataclasses import replace
@@ -18,6 +19,7 @@ import networkx as nx
 import numpy as np
 import pytest
 import shapely
+import yaml
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
@@ -26,6 +28,7 @@ from planner.cspace import build_free_space
 from planner.incremental import StateSpaces
 from planner.model import FINISH, START
 from planner.plan import plan_scene, verify_tolerance
+from planner.routefile import dump_route, load_route
 from planner.scene import load_scene_bytes
 from planner.states import StateTracker
 from planner.verify import verify_route
@@ -194,6 +197,20 @@ def test_leg_states_and_route_fields_follow_the_contract():
     assert "carry" not in by_to["finish"].extra and "carry" not in by_to["pick-2"].extra
     assert [s.present for s in result.leg_states][:2] == [("tray",), ("part-1", "tray")]
     check_route_against_references(scene, route)
+    # the route file carries the fields, in the contract's spelling, and reads back the same
+    text = dump_route(route, SETTINGS.resolution)
+    data_back = yaml.safe_load(text)  # PyYAML: an independent reading of the file
+    legs_back = {leg["to"]: leg for leg in data_back["legs"]}
+    assert legs_back["t2"]["appeared"] == ["part-1"] and "gone" not in legs_back["t2"]
+    assert legs_back["place-2"]["gone"] == ["tray"]
+    assert legs_back["place-2"]["carry"] == OUTLINES[0]
+    assert "appeared" not in legs_back["exit-1"] and "carry" not in legs_back["finish"]
+    again = load_route(text)
+    assert [leg.extra.get("carry") for leg in again.legs] == [
+        None if "carry" not in leg.extra else tuple(map(tuple, leg.extra["carry"]))
+        for leg in route.legs]
+    assert verify_route(again, scene, tolerance=verify_tolerance(SETTINGS),
+                        resolution=SETTINGS.resolution) == []
 
 
 def test_a_route_planned_without_the_part_that_just_appeared_is_caught():
@@ -288,3 +305,66 @@ def length_or_kind(roadmap, a, b):
         return roadmap.path(a, b)[1]
     except NoPath as err:
         return err.kind
+
+
+# -- job order with states ----------------------------------------------------------------------
+
+
+@st.composite
+def cutting_jobs(draw):
+    """Parts that appear after their exit points, some exits ordered after others."""
+    n = draw(st.integers(2, 4))
+    obstacles, targets = [], []
+    for k in range(n):
+        x, y = 15 + 22 * k + draw(st.floats(-3, 3)), draw(st.floats(30, 70))
+        obstacles.append({"id": f"part-{k + 1}", "rect": {"min": [x - 4, y - 8],
+                                                           "max": [x + 4, y + 8]},
+                          "after": f"exit-{k + 1}"})
+        entry = {"id": f"exit-{k + 1}", "at": [round(x, 2), round(y + draw(st.sampled_from(
+            [-16, 16])), 2)]}
+        if k and draw(st.booleans()):
+            entry["after"] = f"exit-{draw(st.integers(1, k))}"
+        targets.append(entry)
+    order = draw(st.permutations(range(n)))
+    return {
+        "scene": 1, "units": "mm", "travel": {"x": [0, 100], "y": [0, 100]},
+        "head": {"footprint": HEAD, "margin": 0.5}, "obstacles": obstacles,
+        "start": [2, 2], "targets": [targets[k] for k in order], "finish": [98, 98],
+        "sequence": "shortest",
+    }
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(cutting_jobs())
+def test_state_aware_order_keeps_constraints_and_beats_no_valid_order(data):
+    scene = load(data)
+    result = plan_scene(scene, SETTINGS)
+    route = result.route
+    visited = [leg.to_id for leg in route.legs if leg.to_id != FINISH]
+    pos = {tid: i for i, tid in enumerate(visited)}
+    for t in scene.targets:  # every `after` holds among the targets visited
+        if t.after is not None and t.id in pos and t.after in pos:
+            assert pos[t.after] < pos[t.id]
+    # deterministic: the same scene gives the same route
+    assert plan_scene(scene, SETTINGS).route.legs == route.legs
+    # itertools: every order that keeps the constraints, each planned on its own (given order);
+    # none reaches more targets, and none is shorter by more than the search can miss
+    ids = [t.id for t in scene.targets]
+    after = {t.id: t.after for t in scene.targets}
+    best = None
+    for perm in itertools.permutations(ids):
+        if any(after[i] is not None and perm.index(after[i]) > perm.index(i) for i in perm):
+            continue
+        by_id = {t.id: t for t in scene.targets}
+        fixed = replace(scene, sequence="given", targets=tuple(by_id[i] for i in perm))
+        r = plan_scene(fixed, SETTINGS).route
+        score = (len(r.unreachable), r.length)
+        best = score if best is None or score < best else best
+        if list(perm) == ids:
+            given_score = score
+    got = (len(route.unreachable), route.length)
+    assert got >= (best[0], best[1] - 1e-6)  # nothing beats the optimum (a consistency check)
+    if all(after[i] is None or ids.index(after[i]) < ids.index(i) for i in ids):
+        assert got <= (given_score[0], given_score[1] + 1e-6)  # never worse than the file order
+    event(f"gap to the optimum {100 * (got[1] - best[1]) / max(best[1], 1):.0f}%"
+          if got[0] == best[0] else "reaches fewer targets than the optimum")
