@@ -41,13 +41,14 @@ def stage_cpu(run: dict, stage: str) -> float:
 
 
 def _stage_table(runs: list[dict]) -> list[str]:
-    head = ("| scene | vertices | obstacles | nodes | " + " | ".join(STAGES)
+    head = ("| scene | vertices | obstacles | convex pieces | nodes | " + " | ".join(STAGES)
             + " | leg (cold) median / max ms | `sidestep plan` wall / CPU s | peak MiB |")
     out = [head, "|" + " --- |" * (head.count("|") - 1)]
     for run in runs:
         first = run["stages"][0]
         cells = [f"{run['kind']} {_k(run['size'])}", str(first["vertices"]),
-                 str(first["obstacles"]), str(first["roadmap"]["nodes"])]
+                 str(first["obstacles"]), str(first.get("cspace", {}).get("pieces", "-")),
+                 str(first["roadmap"]["nodes"])]
         cells += [_f(stage_cpu(run, s)) for s in STAGES]
         cold = [median(vals) for vals in zip(*(r["cold_leg_cpu_s"] for r in run["stages"]),
                                              strict=True)]
@@ -62,8 +63,9 @@ def _stage_table(runs: list[dict]) -> list[str]:
 
 def _growth_table(runs: list[dict]) -> list[str]:
     stages = ("cspace", "roadmap", "load", "plan")
-    out = ["| kind | sizes | " + " | ".join(stages) + " | `sidestep plan` CPU |",
-           "|" + " --- |" * (len(stages) + 3)]
+    out = ["| kind | sizes | " + " | ".join(stages) + " | `sidestep plan` CPU | reflex vertices "
+           "| cspace against its convex pieces |",
+           "|" + " --- |" * (len(stages) + 5)]
     by_kind: dict[str, list[dict]] = {}
     for run in runs:
         by_kind.setdefault(run["kind"], []).append(run)
@@ -80,6 +82,14 @@ def _growth_table(runs: list[dict]) -> list[str]:
             ea = median(e["cpu_s"] for e in a["e2e"])
             eb = median(e["cpu_s"] for e in b["e2e"])
             cells.append(_f(exponent(na, ea, nb, eb)))
+            ca, cb = a["stages"][0].get("cspace"), b["stages"][0].get("cspace")
+            if ca and cb:
+                cells.append(_f(exponent(na, ca["reflex_input_vertices"], nb,
+                                         cb["reflex_input_vertices"])))
+                cells.append(_f(exponent(ca["pieces"], stage_cpu(a, "cspace"), cb["pieces"],
+                                         stage_cpu(b, "cspace"))))
+            else:
+                cells += ["-", "-"]
             out.append("| " + " | ".join(cells) + " |")
     return out
 
@@ -193,6 +203,10 @@ def results_markdown(res: dict) -> str:
         *_stage_table(runs),
         "",
         "### Growth exponents (k in t ~ n^k, from CPU medians)",
+        "",
+        "n is the number of obstacle vertices, except in the last two columns: how the count of "
+        "reflex (inward-turning) vertices grows with n in these scenes, and the configuration "
+        "space's time against its number of convex pieces.",
         "",
         *_growth_table(runs),
         "",

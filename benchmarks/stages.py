@@ -48,6 +48,24 @@ def _peak_kib() -> int:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 
 
+def _reflex_count(scene) -> int:
+    """Polygon obstacle vertices where the outline turns inwards (the convex decomposition's
+    work grows with these, not with all vertices)."""
+    import numpy as np
+
+    total = 0
+    for o in scene.obstacles:
+        if o.polygon is None or len(o.polygon) < 4:
+            continue
+        p = np.asarray(o.polygon, dtype=float)
+        d_in = p - np.roll(p, 1, axis=0)
+        d_out = np.roll(p, -1, axis=0) - p
+        turn = d_in[:, 0] * d_out[:, 1] - d_in[:, 1] * d_out[:, 0]
+        area2 = float(np.sum(p[:, 0] * np.roll(p[:, 1], -1) - np.roll(p[:, 0], -1) * p[:, 1]))
+        total += int(np.sum(turn * np.sign(area2) < 0))
+    return total
+
+
 def _route_legs(scene) -> list[tuple[str, tuple, str, tuple]]:
     from planner.model import FINISH, START
 
@@ -131,6 +149,7 @@ def run_stages(scene_path: Path, out_dir: Path) -> dict:
 
     written = clock.run("write", write)
     peak_kib = _peak_kib()
+    import shapely
     stats = {k: v for k, v in roadmap.stats.items() if k != "seconds"}
     return {
         "scene": str(scene_path),
@@ -143,6 +162,9 @@ def run_stages(scene_path: Path, out_dir: Path) -> dict:
         "stages": clock.stages,
         "roadmap_seconds": roadmap.stats.get("seconds", {}),
         "roadmap": stats,
+        "cspace": {"pieces": int(len(free.pieces)),
+                   "blocked_vertices": int(shapely.get_num_coordinates(free.blocked)),
+                   "reflex_input_vertices": _reflex_count(scene)},
         "query_lengths": lengths,
         "cold_leg_cpu_s": cold,
         "adapter_cpu_s": adapter_s,

@@ -53,7 +53,9 @@ def _key_ids(points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 _HOLES_PER_CELL = 2
 # Ear clipping and the joining also grow with the square of a part's vertex count (one finely
 # drawn arc is enough): a part with many vertices is cut into cells of about this many.
-_VERTICES_PER_CELL = 4096
+# Speed only, measured (benchmarks/run.py, docs/performance.md): 128 rather than 4096 took the
+# road map of the sparse 20k/100k/500k scenes from 0.39/1.02/2.10 s to 0.32/0.90/1.77 s CPU.
+_VERTICES_PER_CELL = 128
 
 
 def _cells(part: shapely.Polygon) -> tuple[list[shapely.Geometry], np.ndarray, np.ndarray]:

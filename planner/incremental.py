@@ -2,22 +2,24 @@
 
 States of a job differ by a few obstacles (a part that was just cut, a tray that was emptied)
 or by the carried outline. For each distinct footprint this keeps every obstacle's grown pieces
-(computed once) and, per state, only what a change can touch:
+(computed once) and, per state, redoes only what a change can touch:
 
 - clusters: the present obstacles grouped by grown shapes that meet; each cluster keeps its
   union, that union shrunk by eps (the road map's visibility test) and the free space's reflex
   corners along it. A state's union is its clusters side by side (they are disjoint).
-- the triangulation of the free space, in fixed tiles: a tile is triangulated again only when a
-  cluster crossing it changed; the rest are reused.
-- the road map: edges between corners away from the change are kept, less those that now cross
-  an added obstacle; corners near a change walk the triangulation again; where an obstacle went,
-  the other corners walk only the directions that point at the place it left.
+- the road map: edges between corners a change does not concern are kept, less those that now
+  cross an added obstacle; the corners on a changed obstacle find their edges again by a tangent
+  test against every corner, an occlusion filter and the exact visibility test; where an
+  obstacle went, the other corners walk a triangulation of the free space (kept in tiles, see
+  tiles.py) only in the directions that point at the place it left.
+- queries first try a kept state with fewer obstacles: its shortest path is a lower bound, and
+  the answer here when it stays clear of everything added since (no state update needed).
 
-A state is derived from the kept state of the same footprint that differs from it least. Every
-step is exact (no approximation beyond the static planner's), so a derived state has the same
-free space and the same shortest paths as one built from scratch; tests compare the two.
-Cluster unions are formed from the member obstacles' pieces, so a state's geometry does not
-depend on the path by which it was reached.
+The first state of a footprint is built whole by build_roadmap; later ones are derived from the
+kept state that differs least. Every step is exact (no approximation beyond the static
+planner's), so a derived state has the same free space and the same shortest path lengths as one
+built from scratch; tests compare the two. Cluster unions are formed from the member obstacles'
+pieces, so a state's geometry does not depend on the path by which it was reached.
 """
 
 from __future__ import annotations
@@ -468,6 +470,16 @@ class FootprintSpace:
         else:
             self._states.move_to_end(present)
         return st.roadmap.distances_from(a, targets, cost)
+
+    def bound_distances(self, present: frozenset[int], a, targets: np.ndarray, cost=None
+                        ) -> np.ndarray:
+        """Lower bounds on Roadmap.distances_from in the state with these obstacles present:
+        from the largest kept state with a subset of them (exact when there is none)."""
+        present = frozenset(present)
+        base = self._states.get(present) or self._subset_base(present)
+        if base is None:
+            return self.state(present).roadmap.distances_from(a, targets, cost)
+        return base.roadmap.distances_from(a, targets, cost)
 
     def _free_space(self, present: frozenset[int], clusters: Sequence[_Cluster]) -> FreeSpace:
         members = sorted(present)
@@ -978,6 +990,13 @@ class StateSpaces:
         if not self.incremental:
             return self.get(state).roadmap.path(a, b, cost)
         return self._space(state).path(self._present(state), a, b, cost)
+
+    def bound_distances(self, state: State, a, targets: np.ndarray, cost=None) -> np.ndarray:
+        """Lower bounds on the least costs from a to every target in `state`, cheap: from a
+        kept state with fewer obstacles where there is one (for guiding a search only)."""
+        if not self.incremental:
+            return self.get(state).roadmap.distances_from(a, targets, cost)
+        return self._space(state).bound_distances(self._present(state), a, targets, cost)
 
     def distances(self, state: State, a, targets: np.ndarray, cost=None) -> np.ndarray:
         """Least costs from a to every target in `state` (Roadmap.distances_from's answer)."""

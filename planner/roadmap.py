@@ -113,7 +113,9 @@ def reflex_corners(region: shapely.Geometry) -> _Corners:
     d_in = _unit(coords - coords[prv])
     d_out = _unit(coords[nxt] - coords)
     right = _cross(d_in, d_out) < -_NOISE
-    uniq, count = np.unique(coords, axis=0, return_counts=True)
+    z = np.ascontiguousarray(coords, dtype=np.float64).view(np.complex128).reshape(-1) + 0.0
+    uniq_z, count = np.unique(z, return_counts=True)
+    uniq = np.column_stack([uniq_z.real, uniq_z.imag])
     return _Corners(coords[right], coords[prv][right], coords[nxt][right], uniq[count > 1])
 
 
@@ -614,7 +616,9 @@ def build_roadmap(free: FreeSpace) -> Roadmap:
     u = np.concatenate([vertex_node[c_vertex[src]], vertex_node[pinch_vertex[p_src]]])
     v = np.concatenate([vertex_node[vert], vertex_node[p_v]])
     differ = u != v
-    pair = np.unique(np.stack([np.minimum(u, v), np.maximum(u, v)], axis=1)[differ], axis=0)
+    n_nodes = max(len(nodes), 1)
+    key = np.unique(np.minimum(u, v)[differ] * n_nodes + np.maximum(u, v)[differ])
+    pair = np.stack([key // n_nodes, key % n_nodes], axis=1)
     timing["bitangent"] = time.perf_counter() - t1
     t1 = time.perf_counter()
     ok = roadmap.visible(nodes[pair[:, 0]], nodes[pair[:, 1]]) if len(pair) else np.zeros(0, bool)

@@ -5,7 +5,8 @@ carries), and that depends on the order. Candidate orders are evaluated exactly:
 its own state, leg costs cached by (from, to, state key), unreachable targets skipped without
 changing the state. The candidates are the given order (when it keeps the constraints) and the
 tours that sequence.py's heuristics find on cost matrices built from the best order so far: a
-row per point, measured in the state the head would be in when leaving that point. A new tour
+row per point, for the state the head would be in when leaving that point (lower bounds from a
+kept state with fewer obstacles, where there is one: the matrix only guides the search). A new tour
 is kept only when it reaches more targets or is shorter, so the result is never worse than the
 given order and, like the search itself, the same on every run.
 """
@@ -29,7 +30,8 @@ _ROUNDS = 3  # matrix rebuilds after the first; each is kept only if it improves
 
 
 class LegCosts:
-    """Leg costs by (from, to, state key), each from one search per (from, state)."""
+    """Leg costs by (from, to, state key): exact ones for evaluating orders, one path search each;
+    and rows of lower bounds for the search's matrices, one search per (from, state)."""
 
     def __init__(self, scene: Scene, spaces: StateSpaces, cost: EdgeCost | None = None) -> None:
         self.scene = scene
@@ -42,31 +44,49 @@ class LegCosts:
         self.point_of.update(zip(self.ids, map(tuple, self.points), strict=True))
         self.index = {i: k for k, i in enumerate(self.ids)}
         self._rows: dict[tuple, np.ndarray] = {}
-        self.searches = 0
+        self._legs: dict[tuple, float] = {}
 
     def row(self, from_id: str, state: State) -> np.ndarray:
-        """Least costs (lengths, or by `cost`) from `from_id` to every target (and finish) in
-        `state`; inf: no path."""
+        """Lower bounds on the costs (lengths, or by `cost`) from `from_id` to every target (and
+        finish) in `state` (exact where no kept state has fewer obstacles); inf: no path."""
         key = (from_id, state.key)
         row = self._rows.get(key)
         if row is None:
             check_time("ordering the targets")
             try:
-                row = self.spaces.distances(state, self.point_of[from_id], self.points,
-                                            self.cost)
+                row = self.spaces.bound_distances(state, self.point_of[from_id], self.points,
+                                                  self.cost)
             except NoPath:  # the point itself is blocked in this state
                 row = np.full(len(self.points), np.inf)
             self._rows[key] = row
-            self.searches += 1
         return row
 
     def leg(self, from_id: str, to_id: str, state: State) -> float:
-        return float(self.row(from_id, state)[self.index[to_id]])
+        """The exact cost of one leg in its state (inf: unreachable)."""
+        key = (from_id, to_id, state.key)
+        d = self._legs.get(key)
+        if d is None:
+            check_time("ordering the targets")
+            try:
+                pts, length = self.spaces.path(state, self.point_of[from_id],
+                                               self.point_of[to_id], self.cost)
+                d = length if self.cost is None else _polyline_cost(pts, self.cost)
+            except NoPath:
+                d = np.inf
+            self._legs[key] = d
+        return float(d)
+
+
+def _polyline_cost(pts: np.ndarray, cost: EdgeCost) -> float:
+    moves = np.diff(np.asarray(pts, dtype=float), axis=0)
+    moves = moves[np.any(moves != 0, axis=1)]
+    return float(np.sum(cost(moves))) if len(moves) else 0.0
 
 
 def evaluate_order(costs: LegCosts, order: Sequence[int]) -> tuple[int, float, list[State]]:
-    """(targets not reached, total length, the state of each point when the head leaves it) for
-    visiting the targets `order` (indices) and then finish, each leg in its own state."""
+    """(targets not reached, total cost (length, or by the costs' `cost`), the state of each
+    point when the head leaves it) for visiting the targets `order` (indices) and then finish,
+    each leg in its own state."""
     scene = costs.scene
     tracker = StateTracker(scene)
     at = START

@@ -12,7 +12,7 @@ own from the route and the scene.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 import shapely
@@ -170,11 +170,3 @@ def leg_extra(previous: State | None, current: State) -> dict:
     if current.carry is not None:
         extra["carry"] = [list(p) for p in current.carry]
     return extra
-
-
-def order_ids(scene: Scene, order: Sequence[int]) -> list[str]:
-    """Target ids for an order of target indices, finish appended when the scene has one."""
-    ids = [scene.targets[k].id for k in order]
-    if scene.finish is not None:
-        ids.append(FINISH)
-    return ids

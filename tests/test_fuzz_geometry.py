@@ -297,3 +297,18 @@ def test_a_failing_shrink_for_the_visibility_test_is_repaired_or_refused(monkeyp
     settings = SETTINGS.in_units(loaded.units)
     with pytest.raises(PlanningError, match="GEOS failed"):
         roadmap.build_roadmap(build_free_space(loaded, settings))
+
+
+def test_the_time_budget_is_checked_inside_the_road_map_build():
+    # The cheap check sits in the visibility walk, the road map's longest loop: a plan that
+    # runs out of time there stops at the next step instead of finishing the build.
+    from planner.budget import time_budget
+    from planner.cspace import build_free_space
+    from planner.roadmap import build_roadmap
+
+    loaded = load_scene_bytes(json.dumps(BLOCKS).encode(), "blocks.json", SETTINGS)
+    free = build_free_space(loaded, SETTINGS.in_units(loaded.units))
+    with time_budget(0.0, "blocks.json"), pytest.raises(TooComplexError) as info:
+        build_roadmap(free)
+    assert "looking for visible corners" in str(info.value)
+    build_roadmap(free)  # outside a budget nothing stops it
