@@ -141,10 +141,17 @@ class JobSheetAdapter:
     @staticmethod
     def _legs(route: Route) -> str:
         units = route.units
+        from planner.render import leg_state_text
+
         timed = any("time" in leg.extra for leg in route.legs)
+        # scenes that change as the job runs: what appeared, went or is carried on each leg
+        changes = [leg_state_text(leg.extra, units) for leg in route.legs]
+        changing = any(changes)
         head = "<tr><th>leg</th><th>from</th><th>to</th><th>length</th>"
         head += "<th>time</th>" if timed else ""
-        head += "<th>waypoints</th></tr>"
+        head += "<th>waypoints</th>"
+        head += "<th>state changes</th>" if changing else ""
+        head += "</tr>"
         rows = [f"<h2>Legs ({len(route.legs)})</h2>", "<table>", head]
         for k, leg in enumerate(route.legs, start=1):
             row = (f"<tr><td class=\"num\">{k}</td><td>{_e(leg.from_id)}</td>"
@@ -152,7 +159,9 @@ class JobSheetAdapter:
             if timed:
                 shown = _time(leg.extra["time"]) if "time" in leg.extra else ""
                 row += f"<td class=\"num\">{shown}</td>"
-            row += f"<td class=\"num\">{len(leg.points)}</td></tr>"
+            row += f"<td class=\"num\">{len(leg.points)}</td>"
+            row += f"<td>{_e(changes[k - 1])}</td>" if changing else ""
+            row += "</tr>"
             rows.append(row)
         total = (f"<tr><th colspan=\"3\">total</th><th class=\"num\">"
                  f"{_len(route.length, units)}</th>")
@@ -161,7 +170,7 @@ class JobSheetAdapter:
             if t is None and all("time" in leg.extra for leg in route.legs):
                 t = sum(float(leg.extra["time"]) for leg in route.legs)
             total += f"<th class=\"num\">{'' if t is None else _time(t)}</th>"
-        total += "<th></th></tr>"
+        total += "<th></th><th></th></tr>" if changing else "<th></th></tr>"
         rows.append(total)
         rows.append("</table>")
         if not route.legs:

@@ -48,10 +48,15 @@ def cmd_check(args: argparse.Namespace) -> int:
     timing = "" if total is None else f", estimated time {total:.3f} s"
     print(f"{scene_path.name}: valid; {route.status}: {len(route.legs)} legs, "
           f"length {route.length:.3f} {route.units}{timing} (nothing written)")
+    from .render import leg_state_text
+
     for i, leg in enumerate(route.legs, 1):
         t = leg.extra.get("time")
         est = "" if t is None else f"  {t:.3f} s"
-        print(f"  leg {i}: {leg.from_id} -> {leg.to_id}  {leg.length:.3f} {route.units}{est}")
+        changed = leg_state_text(leg.extra, route.units)
+        changed = f"  [{changed}]" if changed else ""
+        print(f"  leg {i}: {leg.from_id} -> {leg.to_id}  {leg.length:.3f} {route.units}{est}"
+              f"{changed}")
     _print_order_saving(outcome.result, route.units)
     for item in route.unreachable:
         print(f"  unreachable {item.id}: {item.reason}")
@@ -80,9 +85,13 @@ def _print_order_saving(result, units: str) -> None:
 
 def cmd_show(args: argparse.Namespace) -> int:
     from .files import atomic_write, output_path, output_stem
-    from .render import render_svg, svg_to_png
+    from .render import leg_state_text, render_svg, svg_to_png
 
     scene_path = Path(args.scene)
+    if args.leg is not None and args.leg < 1:
+        print(f"--leg {args.leg}: legs are numbered from 1 (fix: --leg 1 or higher)",
+              file=sys.stderr)
+        return EXIT_INVALID
     if args.output:
         picture = Path(args.output)
         if picture.suffix.lower() not in (".svg", ".png"):
@@ -90,7 +99,8 @@ def cmd_show(args: argparse.Namespace) -> int:
                   f"-o {picture.with_suffix('.svg').name})", file=sys.stderr)
             return EXIT_INVALID
     else:
-        picture = output_path(scene_path.parent, output_stem(scene_path), ".svg")
+        stem = output_stem(scene_path) + ("" if args.leg is None else f".leg{args.leg}")
+        picture = output_path(scene_path.parent, stem, ".svg")
     if not picture.parent.is_dir():
         print(f"{picture}: folder {picture.parent} does not exist (fix: create it or pick "
               "another -o)", file=sys.stderr)
@@ -104,16 +114,57 @@ def cmd_show(args: argparse.Namespace) -> int:
         return outcome.exit_code
     result = outcome.result
     route = result.route
-    svg = render_svg(result.scene, route, result.free.blocked)
+    if args.leg is not None and args.leg > len(route.legs):
+        print(f"{scene_path.name}: --leg {args.leg}: the route has {len(route.legs)} "
+              f"leg{'s' if len(route.legs) != 1 else ''} (fix: --leg 1 to "
+              f"{len(route.legs)})" if route.legs else
+              f"{scene_path.name}: --leg {args.leg}: no leg could be planned", file=sys.stderr)
+        return EXIT_INVALID
+    if args.leg is None:
+        svg = render_svg(result.scene, route, result.free.blocked)
+    else:
+        view, grown = _leg_view(result, args.leg)
+        svg = render_svg(result.scene, route, grown, leg=view)
     atomic_write(picture, svg_to_png(svg) if picture.suffix.lower() == ".png" else svg)
     print(f"{scene_path.name}: {route.status}, {len(route.legs)} legs, "
           f"length {route.length:.3f} {route.units}")
     for item in route.unreachable:
         print(f"  unreachable {item.id}: {item.reason}")
+    if args.leg is not None:
+        leg = route.legs[args.leg - 1]
+        changed = leg_state_text(leg.extra, route.units)
+        print(f"  leg {args.leg}: {leg.from_id} -> {leg.to_id}"
+              + (f" ({changed})" if changed else ""))
     print(f"  picture: {picture}")
     print("Before running this route on the machine:")
     print(caution_text())
     return 0
+
+
+def _leg_view(result, number: int):
+    """What leg `number` (1-based) sees: a LegView and that leg's grown obstacles."""
+    import shapely
+
+    from .render import LegView
+    from .states import footprint_of
+
+    scene = result.scene
+    if result.leg_states:
+        states = result.leg_states
+        state = states[number - 1]
+        free = result.spaces.get(state).free
+        present = set(state.present)
+        earlier = {i for s in states[:number - 1] for i in s.present}
+        # not present: gone when an earlier leg had it or nothing holds it back (`until` only)
+        absent = {o.id: "already gone" if o.id in earlier or o.after is None
+                  else "not yet present" for o in scene.obstacles if o.id not in present}
+        footprint = footprint_of(scene, state)
+        if not isinstance(footprint, shapely.Geometry):
+            footprint = shapely.Polygon(footprint)
+    else:
+        free, absent = result.free, {}
+        footprint = shapely.Polygon(scene.head.footprint)
+    return LegView(number=number, absent=absent, footprint=footprint), free.blocked
 
 
 def cmd_adapters(args: argparse.Namespace) -> int:
@@ -150,6 +201,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("scene")
     p.add_argument("-o", "--output", help="picture file ending in .svg or .png "
                    "(default: <scene name>.svg beside the scene)")
+    p.add_argument("--leg", type=int, metavar="N", help="draw the scene as leg N (1-based) "
+                   "sees it (default name: <scene name>.leg<N>.svg)")
     p.add_argument("--config", help="config folder (default: ./config)")
     p.set_defaults(func=cmd_show)
 

@@ -16,11 +16,13 @@ from xml.sax.saxutils import escape, quoteattr
 
 import numpy as np
 import shapely
+import shapely.affinity
 import shapely.ops
 
 from .model import FINISH, START, Obstacle, Point, Ring, Route, Scene, Target
 
-__all__ = ["PALETTE", "Frame", "frame_for", "visit_order", "render_svg", "svg_to_png"]
+__all__ = ["PALETTE", "Frame", "LegView", "frame_for", "visit_order", "render_svg", "svg_to_png",
+           "leg_state_text"]
 
 # Okabe-Ito colours (with their approximate CIE L* in brackets, for the greyscale check):
 PALETTE = {
@@ -44,6 +46,34 @@ _BELOW_H = 92.0  # px below the drawing: axis labels, operator side, scale bar
 _LEGEND_W = 430.0  # px right of the drawing
 _CHAR_W = 0.60  # average glyph width as a fraction of the font size (DejaVu Sans, measured)
 _MAX_LABELS = 300  # obstacle ids drawn at most (the largest obstacles); more would be a smudge
+
+
+@dataclass(frozen=True)
+class LegView:
+    """How one leg sees a scene that changes as the job runs (for `show --leg N`).
+
+    `number` is the leg (1-based, as tagged in the picture); `absent` maps each obstacle not
+    present on that leg to why ("not yet present" or "already gone"); `footprint` is the
+    leg's footprint (the head's own, with the carried outline) in the head's frame.
+    """
+
+    number: int
+    absent: dict[str, str]
+    footprint: shapely.Geometry
+
+
+def leg_state_text(extra: dict, units: str) -> str:
+    """What changed for a leg (its route fields `appeared`, `gone`, `carry`), in words; ''
+    when nothing did and the head carries nothing."""
+    words = [f"+{i} appeared" for i in extra.get("appeared", ())]
+    words += [f"-{i} gone" for i in extra.get("gone", ())]
+    carry = extra.get("carry")
+    if carry:
+        a = np.asarray(carry, dtype=float)
+        w, h = np.ptp(a[:, 0]), np.ptp(a[:, 1])
+        words.append(f"carrying a {_num(w)} x {_num(h)} {units} outline "
+                     "(the footprint includes it)")
+    return "; ".join(words)
 
 
 @dataclass(frozen=True)
@@ -408,6 +438,7 @@ def render_svg(
     *,
     reasons: Sequence[tuple[str, str]] | None = None,
     details: bool = True,
+    leg: LegView | None = None,
 ) -> str:
     """The picture of a scene as SVG text.
 
@@ -416,6 +447,9 @@ def render_svg(
     (id, reason) pairs listed in the legend (default: the route's unreachable ones); without
     `details` the legend leaves out the reasons' words and the list of legs (for pages that
     print them beside the picture).
+    With `leg`, the scene is drawn as that leg sees it: absent obstacles faint and dashed
+    (labelled why), the leg's footprint at its start, that leg highlighted and the others faint;
+    `grown` should then be that leg's grown obstacles.
     """
     fr = frame_for(scene)
     units = scene.units
@@ -427,8 +461,10 @@ def render_svg(
     bad_letter = {uid: chr(ord("A") + i) if i < 26 else str(i + 1)
                   for i, (uid, _) in enumerate(reasons)}
     ride = scene.head.ride_height
-    passed = [o for o in scene.obstacles if not o.is_avoided(ride)]
-    avoided = [o for o in scene.obstacles if o.is_avoided(ride)]
+    absent = leg.absent if leg is not None else {}
+    passed = [o for o in scene.obstacles if not o.is_avoided(ride) and o.id not in absent]
+    avoided = [o for o in scene.obstacles if o.is_avoided(ride) and o.id not in absent]
+    faint = [o for o in scene.obstacles if o.id in absent]
 
     placer = _Placer((fr.left, fr.top, fr.left + fr.width, fr.top + fr.height))
     points_svg, point_labels = _points_layer(fr, scene, number, bad_letter, placer)
@@ -446,19 +482,23 @@ def render_svg(
     for i in by_size[:_MAX_LABELS]:
         o = scene.obstacles[i]
         name = o.id + _obstacle_note(o)
-        if o.is_avoided(ride):
+        if o.id in absent:
+            labels.append(_label_obstacle(fr, shapes[i], [[f"{name}: {absent[o.id]}"]],
+                                          PALETTE["ink"], placer, inside_halo=True))
+        elif o.is_avoided(ride):
             labels.append(_label_obstacle(fr, shapes[i], [[name]], PALETTE["paper"], placer))
         else:
             high = f"{_num(o.height)} {units} high, passed over"
             labels.append(_label_obstacle(fr, shapes[i], [[name, high], [f"{name}: {high}"]],
                                           PALETTE["ink"], placer, inside_halo=True))
-    route_svg = _route_layer(fr, route, placer) if route is not None else ""
+    route_svg = _route_layer(fr, route, placer, leg.number if leg else None) if route else ""
     labels.append(point_labels())
     hints, hint_labels, hint_kinds = _hints_layer(fr, scene, unreachable, bad_letter, placer)
     labels.append(hint_labels)
     legend, legend_h = _legend(scene, route, reasons, bad_letter, bool(passed), grown is not None,
                                bool(_carried_outlines(scene, order)), hint_kinds, details,
-                               unlabelled)
+                               unlabelled, focus=leg.number if leg is not None else None,
+                               any_absent=bool(faint))
     draw_h = fr.height + _BELOW_H
     width = _PAD + fr.width + 28 + _LEGEND_W + _PAD
     height = _PAD + _TITLE_H + max(draw_h, legend_h) + _PAD
@@ -507,6 +547,10 @@ def render_svg(
     for o in avoided:
         out.append(_obstacle_shape(fr, o, f'fill="{PALETTE["obstacle"]}" '
                                    f'stroke="{PALETTE["ink"]}" stroke-width="1"'))
+    for o in faint:  # not present on the leg drawn: an outline only
+        out.append(_obstacle_shape(fr, o, f'fill="none" stroke="{PALETTE["obstacle"]}" '
+                                   'stroke-width="1" stroke-opacity="0.45" '
+                                   'stroke-dasharray="3 3" data-absent="true"'))
     out.append("</g>")
     out.append(f'<rect x="{_f(tx0)}" y="{_f(ty0)}" width="{_f(tx1 - tx0)}" '
                f'height="{_f(ty1 - ty0)}" fill="none" stroke="{PALETTE["ink"]}" stroke-width="2"/>')
@@ -525,6 +569,11 @@ def render_svg(
             cxy = fr.many(np.asarray(carried[pid], dtype=float) + np.array([px_, py_]))
             out.append(f'<polygon points="{_pts(cxy)}" stroke="{PALETTE["target"]}" '
                        'stroke-width="1.3" stroke-dasharray="1.5 2"/>')
+    if leg is not None and route is not None and 0 < leg.number <= len(route.legs):
+        sx, sy = route.legs[leg.number - 1].points[0]
+        moved = shapely.affinity.translate(leg.footprint, sx, sy)
+        out.append(f'<path id="leg-footprint" d="{_geometry_path(fr, moved)}" '
+                   f'stroke="{PALETTE["ink"]}" stroke-width="2.2" fill-rule="evenodd"/>')
     out.append("</g>")
 
     out.append(route_svg)
@@ -547,15 +596,23 @@ def _obstacle_shape(fr: Frame, o: Obstacle, style: str) -> str:
     return f'<path id={ident} d="{_ring_path(fr, o.polygon)}" {style}/>'
 
 
-def _route_layer(fr: Frame, route: Route, placer: _Placer) -> str:
+def _route_layer(fr: Frame, route: Route, placer: _Placer, focus: int | None = None) -> str:
+    """The legs, their arrows and tags; with `focus` (1-based) that leg bold, the others faint."""
     out = ['<g id="route" fill="none" stroke-linejoin="round" stroke-linecap="round">']
     paths = []
     for leg in route.legs:
         xy = fr.many(np.asarray(leg.points, dtype=float))
         paths.append(xy)
         out.append(f'<polyline points="{_pts(xy)}" stroke="{PALETTE["paper"]}" stroke-width="7"/>')
-    for xy in paths:
-        out.append(f'<polyline points="{_pts(xy)}" stroke="{PALETTE["route"]}" stroke-width="3"/>')
+    drawn = sorted(range(1, len(paths) + 1), key=lambda k: k == focus)  # the focus on top
+    for k, xy in ((k, paths[k - 1]) for k in drawn):
+        if focus is None:
+            style = 'stroke-width="3"'
+        elif k == focus:
+            style = f'stroke-width="5" id="leg-{k}"'
+        else:
+            style = 'stroke-width="2" stroke-opacity="0.3"'
+        out.append(f'<polyline points="{_pts(xy)}" stroke="{PALETTE["route"]}" {style}/>')
     out.append("</g><g id='route-marks'>")
     for k, xy in enumerate(paths, start=1):
         seg = np.diff(xy, axis=0)
@@ -777,7 +834,8 @@ def _below(fr: Frame, scene: Scene) -> str:
 def _legend(scene: Scene, route: Route | None, reasons: Sequence[tuple[str, str]],
             letters: dict[str, str], any_passed: bool, any_grown: bool,
             any_carry: bool, hint_kinds: set[str], details: bool = True,
-            unlabelled: int = 0) -> tuple[str, float]:
+            unlabelled: int = 0, focus: int | None = None,
+            any_absent: bool = False) -> tuple[str, float]:
     """The key (symbols with words) and the unreachable targets with their reasons."""
     ink = PALETTE["ink"]
     u = scene.units
@@ -785,6 +843,10 @@ def _legend(scene: Scene, route: Route | None, reasons: Sequence[tuple[str, str]
     y = 34.0
     row = 24.0
     text_x = 46.0
+    if focus is not None:
+        out.append(_text(0, y, f"Drawn as leg {focus} sees it (the bold leg; others faint)",
+                         size=12, weight="bold", halo=False))
+        y += 22
 
     def entry(symbol: str, words: str) -> None:
         nonlocal y
@@ -797,6 +859,10 @@ def _legend(scene: Scene, route: Route | None, reasons: Sequence[tuple[str, str]
     entry(f'<rect x="4" y="-8" width="30" height="16" fill="{PALETTE["obstacle"]}" '
           f'stroke="{ink}"/>',
           "obstacle the head must avoid (clamp, fixture, part)")
+    if any_absent:
+        entry(f'<rect x="4" y="-8" width="30" height="16" fill="none" '
+              f'stroke="{PALETTE["obstacle"]}" stroke-opacity="0.45" stroke-dasharray="3 3"/>',
+              f"obstacle not there on leg {focus} (not yet present or already gone)")
     if any_passed:
         ride = scene.head.ride_height
         entry('<rect x="4" y="-8" width="30" height="16" fill="url(#passed-hatch)" '
@@ -811,6 +877,10 @@ def _legend(scene: Scene, route: Route | None, reasons: Sequence[tuple[str, str]
     entry(f'<rect x="6" y="-9" width="26" height="18" fill="none" stroke="{ink}" '
           'stroke-dasharray="4 2.5" stroke-width="1.1"/>',
           "outline of the head at the start and at each target")
+    if focus is not None:
+        entry(f'<rect x="6" y="-9" width="26" height="18" fill="none" stroke="{ink}" '
+              'stroke-width="2.2"/>',
+              f"footprint of leg {focus} at its start (head with any carried outline)")
     if any_carry:
         entry(f'<rect x="8" y="-7" width="22" height="14" fill="none" stroke="{PALETTE["target"]}" '
               'stroke-dasharray="1.5 2" stroke-width="1.3"/>',
