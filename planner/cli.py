@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from pathlib import Path
 
@@ -134,7 +135,7 @@ def cmd_show(args: argparse.Namespace) -> int:
         leg = route.legs[args.leg - 1]
         changed = leg_state_text(leg.extra, route.units)
         print(f"  leg {args.leg}: {leg.from_id} -> {leg.to_id}"
-              + (f" ({changed})" if changed else ""))
+              + (f"  [{changed}]" if changed else ""))
     print(f"  picture: {picture}")
     print("Before running this route on the machine:")
     print(caution_text())
@@ -253,6 +254,12 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INVALID
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError:  # output piped into e.g. `head`, which stopped reading
+        try:
+            sys.stdout = open(os.devnull, "w")  # noqa: SIM115 - silence the flush at exit
+        except OSError:
+            pass
+        return 0
     except Exception as exc:  # a bug of ours: one clear line, never a traceback
         print(f"sidestep: internal error ({type(exc).__name__}: {exc}); nothing was written "
               "for the scene being planned. Please report this with the scene file.",

@@ -487,9 +487,6 @@ class Watcher:
         ):
             LOG.debug("%s: saved again with the same content; nothing to do", name)
             return
-        if self.config_problem is not None:
-            self._failed(name, stem, sha, JobOutcome("invalid", 2, self.config_problem))
-            return
         if record is None or record.scene_sha256 is None:
             current = self._current_outputs(name, stem, data, sha)
             if current is not None:
@@ -668,7 +665,12 @@ class Watcher:
         self.config_sig = sig
         new_sha = config_files_sha256(self.config_dir)
         if new_sha == self.config_sha:
-            LOG.debug("config saved again with the same content; nothing to do")
+            if self.config_problem is not None:  # put back as it was: the last good config
+                self.config_problem = None
+                self.board.set_config(state="ok", sha256=new_sha, message=None)
+                LOG.info("config: back to the last good content; nothing to replan")
+            else:
+                LOG.debug("config saved again with the same content; nothing to do")
             return
         try:
             settings = load_settings(self.config_dir)
@@ -678,12 +680,12 @@ class Watcher:
                 self.settler.retry(_CONFIG, sig, changed_at,
                                    changed_at + self.options.parse_wait_s)
                 return
-            self.config_sha = new_sha
+            # Keep planning with the last good config (its routes stay valid for it); say so
+            # in status.json and the log until the folder loads again.
             self.config_problem = format_error(exc)
             self.board.set_config(state="invalid", sha256=new_sha, message=self.config_problem)
-            LOG.error("config: %s; every scene's outputs are moved to %s/ until it is fixed",
-                      _one_line(self.config_problem), SUPERSEDED_DIR)
-            self._replan_all()
+            LOG.error("config: %s; planning goes on with the last good config until it is fixed",
+                      _one_line(self.config_problem))
             return
         if options.observer != self.options.observer or options.log_file != self.options.log_file:
             LOG.warning("config: watch.observer and watch.log_file take effect at the next start")

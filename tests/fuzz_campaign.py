@@ -50,7 +50,7 @@ FAULT_KINDS = {  # test name in tests/test_faults_daemon.py -> kind of fault
     "test_a_thousand_scenes_dropped_at_once_are_all_planned": "1,000 scenes at once",
     "test_scene_replaced_by_a_folder_or_a_symlink_loop_is_not_followed":
         "scene replaced by a folder / symlink loop",
-    "test_invalid_config_is_reported_kept_out_of_plans_and_replanned_when_fixed":
+    "test_invalid_config_is_reported_and_the_last_good_one_stays_in_use":
         "config invalid (bad value, heads.yaml a folder, config folder gone)",
 }
 

@@ -271,7 +271,7 @@ def test_only_new_targets_reuse_the_free_space(env: Daemon):
     assert env.stop() == 0
 
 
-def test_broken_config_retires_every_route_until_it_is_fixed(env: Daemon):
+def test_broken_config_is_reported_and_the_last_good_one_stays_in_use(env: Daemon):
     env.start()
     text = scene_text()
     (env.drop / "cfg.yaml").write_text(text)
@@ -279,14 +279,18 @@ def test_broken_config_retires_every_route_until_it_is_fixed(env: Daemon):
     heads = env.config / "heads.yaml"
     good = heads.read_text()
     heads.write_text(good.replace("laser-slim:", "laser-slim: [", 1))  # a YAML syntax error
-    wait_for(lambda: read_status(env.out)["config"]["state"] == "invalid", 10, "the bad config")
-    wait_for(lambda: env.entry("cfg.yaml")["state"] == "invalid", 10, "the scene to be invalid")
-    assert not (env.out / "cfg.route.yaml").exists()
-    assert "heads.yaml" in (env.out / "cfg.error.txt").read_text()
+    state = wait_for(lambda: read_status(env.out)["config"]["state"] == "invalid"
+                     and read_status(env.out)["config"], 10, "the bad config")
+    assert "heads.yaml" in state["message"]
+    wait_for(lambda: "ERROR config:" in env.text(), 10, "the log to report it")
+    # The route planned with the last good config stays; a new scene is planned with it too.
+    assert (env.out / "cfg.route.yaml").exists() and env.entry("cfg.yaml")["state"] == "planned"
+    later = scene_text(targets=[(320, 250)])
+    (env.drop / "new.yaml").write_text(later)
+    assert env.wait_state("new.yaml", later)["state"] == "planned"
     heads.write_text(good)
-    wait_for(lambda: env.entry("cfg.yaml")["state"] == "planned", 10, "the route to come back")
+    wait_for(lambda: read_status(env.out)["config"]["state"] == "ok", 10, "the config to be ok")
     assert (env.out / "cfg.route.yaml").exists() and not (env.out / "cfg.error.txt").exists()
-    assert read_status(env.out)["config"]["state"] == "ok"
     assert env.stop() == 0
 
 
