@@ -106,7 +106,7 @@ def _footprint_bounds(footprint: Ring) -> tuple[float, float, float, float]:
 
 def _obstacle_geometry(obstacle: Obstacle) -> shapely.Geometry:
     if obstacle.polygon is not None:
-        return shapely.Polygon(obstacle.polygon)
+        return shapely.polygons(np.asarray(obstacle.polygon, dtype=float))
     c = obstacle.circle
     # a circle too small for doubles to draw around its centre is drawn a few spacings wide
     smallest = 64 * float(np.spacing(max(abs(c.center[0]), abs(c.center[1]), 1.0)))
@@ -151,9 +151,17 @@ def _pts(xy: np.ndarray) -> str:
 
 
 def _ring_path(frame: Frame, coords: Iterable[Sequence[float]]) -> str:
-    xy = frame.many(np.asarray(list(coords), dtype=float))
+    """A closed SVG path; runs of vertices inside one quarter pixel are drawn as one."""
+    xy = frame.many(np.asarray(coords if isinstance(coords, np.ndarray) else list(coords),
+                               dtype=float))
     if len(xy) and np.allclose(xy[0], xy[-1]):
         xy = xy[:-1]
+    if len(xy) > 8:
+        cells = np.round(xy * 4.0)
+        keep = np.ones(len(xy), dtype=bool)
+        keep[1:] = np.any(cells[1:] != cells[:-1], axis=1)
+        if keep.sum() >= 3:
+            xy = xy[keep]
     return "M" + " L".join(f"{_f(x)},{_f(y)}" for x, y in xy) + " Z"
 
 
@@ -163,8 +171,8 @@ def _geometry_path(frame: Frame, geom: shapely.Geometry) -> str:
     for poly in shapely.get_parts(geom):
         if not isinstance(poly, shapely.Polygon) or poly.is_empty:
             continue
-        parts.append(_ring_path(frame, poly.exterior.coords))
-        parts.extend(_ring_path(frame, r.coords) for r in poly.interiors)
+        parts.append(_ring_path(frame, shapely.get_coordinates(poly.exterior)))
+        parts.extend(_ring_path(frame, shapely.get_coordinates(r)) for r in poly.interiors)
     return " ".join(parts)
 
 

@@ -351,8 +351,8 @@ def _check_clearance(
     # obstacles: a polygon, or a circle's centre point and its radius (distance = d - radius)
     obs = [scene.obstacles[k] for k in avoided]
     geoms = np.empty(len(obs), dtype=object)
-    geoms[:] = [shapely.Point(o.circle.center) if o.circle else shapely.Polygon(o.polygon)
-                for o in obs]
+    geoms[:] = [shapely.Point(o.circle.center) if o.circle
+                else shapely.polygons(np.asarray(o.polygon, dtype=float)) for o in obs]
     radius = np.array([o.circle.radius if o.circle else 0.0 for o in obs], dtype=float)
     is_circle = np.array([o.circle is not None for o in obs], dtype=bool)
     reach = max(head.margin, 0.0)
