@@ -27,8 +27,10 @@ def profile_plan(scene: Path, out_dir: Path, *, threshold: float = 0.02, top: in
     flat = prof.output_text(unicode=False, color=False, flat=True)
     flat_lines = [ln for ln in flat.splitlines() if ln.strip()]
     body = [ln for ln in flat_lines if ln[:1].isdigit() or ln.lstrip()[:1].isdigit()][:top]
-    return (f"{scene.name}: {outcome.state}\n\n{tree.strip()}\n\nTop {top} by own time:\n"
+    text = (f"{scene.name}: {outcome.state}\n\n{tree.strip()}\n\nTop {top} by own time:\n"
             + "\n".join(body) + "\n")
+    root = str(Path(__file__).resolve().parent.parent) + "/"
+    return text.replace(root, "")  # no path of this machine in the published figures
 
 
 def main(argv: list[str] | None = None) -> int:
