@@ -165,22 +165,8 @@ def _build(tris: np.ndarray, points: np.ndarray, cut_x: np.ndarray, cut_y: np.nd
     nv = max(len(xy), 1)
     a = tri[:, [1, 2, 0]]
     b = tri[:, [2, 0, 1]]
-    key = np.minimum(a, b) * nv + np.maximum(a, b)
-    flat = key.ravel()
-    order = np.argsort(flat, kind="stable")
-    sk = flat[order]
-    nbr = np.full(3 * n_tri, -1, dtype=np.int64)
-    nbr_k = np.full(3 * n_tri, -1, dtype=np.int64)
-    if len(sk) > 1:
-        same = sk[1:] == sk[:-1]
-        # an edge seen more than twice is not manifold: leave it closed (conservative)
-        triple = np.zeros(len(sk), dtype=bool)
-        if len(sk) > 2:
-            triple[1:-1] = same[1:] & same[:-1]
-        first = np.flatnonzero(same & ~triple[:-1] & ~triple[1:])
-        i0, i1 = order[first], order[first + 1]
-        nbr[i0], nbr[i1] = i1 // 3, i0 // 3
-        nbr_k[i0], nbr_k[i1] = i1 % 3, i0 % 3
+    nbr, nbr_k = pair_edges(tri, nv)
+    nbr, nbr_k = nbr.ravel(), nbr_k.ravel()
     if len(cut_x) or len(cut_y):
         # a boundary edge lying on a cut line means the cells did not meet edge to edge
         open_edge = nbr < 0
@@ -417,3 +403,25 @@ def point_windows(
     dv = t.xy[v] - s_xy
     m = np.hypot(dv[:, 0], dv[:, 1]) > 0
     return windows, o3[m], v[m]
+
+
+def pair_edges(tri: np.ndarray, nv: int) -> tuple[np.ndarray, np.ndarray]:
+    """Neighbour links of a triangle list: the edge opposite local vertex j joins the other two."""
+    n_tri = len(tri)
+    a, b = tri[:, [1, 2, 0]], tri[:, [2, 0, 1]]
+    flat = (np.minimum(a, b) * nv + np.maximum(a, b)).ravel()
+    order = np.argsort(flat, kind="stable")
+    sk = flat[order]
+    nbr = np.full(3 * n_tri, -1, dtype=np.int64)
+    nbr_k = np.full(3 * n_tri, -1, dtype=np.int64)
+    if len(sk) > 1:
+        same = sk[1:] == sk[:-1]
+        # an edge seen more than twice is not manifold: leave it closed (conservative)
+        triple = np.zeros(len(sk), dtype=bool)
+        if len(sk) > 2:
+            triple[1:-1] = same[1:] & same[:-1]
+        first = np.flatnonzero(same & ~triple[:-1] & ~triple[1:])
+        i0, i1 = order[first], order[first + 1]
+        nbr[i0], nbr[i1] = i1 // 3, i0 // 3
+        nbr_k[i0], nbr_k[i1] = i1 % 3, i0 % 3
+    return nbr.reshape(-1, 3), nbr_k.reshape(-1, 3)

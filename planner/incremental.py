@@ -46,7 +46,7 @@ from .cspace import (
     free_space_key,
 )
 from .model import Obstacle, Ring, Scene
-from .roadmap import Roadmap, build_roadmap, reflex_corners
+from .roadmap import Roadmap, build_roadmap, reflex_corners, segments_occluded
 from .states import State, footprint_of, present_obstacles
 from .tiles import TileGrid, TileMesh, TileMismatch, assemble, tile_mesh, vertex_ids
 
@@ -58,7 +58,6 @@ __all__ = ["LegSpace", "StateSpaces", "FootprintSpace", "StateSpace"]
 _VERTICES_PER_TILE = 400
 _MAX_TILES_PER_AXIS = 64
 _MAX_DISKS = 1024  # occlusion disks per road map, the largest (a filter only)
-_DISK_BLOCK = 64  # disks tested together by the occlusion filter (bounds array sizes only)
 _PAIR_CHUNK = 64  # source corners tested together against every corner (array sizes only)
 _UNION_BLOCK = 16  # obstacles per block of a cluster's union (blocks are cached)
 # A derived state that changes more than this share of the obstacles is built whole instead.
@@ -736,7 +735,8 @@ class FootprintSpace:
                                 ).reshape(-1, 2))
         pairs = _unique_pairs(_pairs(out), len(nodes))
         if len(pairs):
-            pairs = pairs[~_occluded(nodes[pairs[:, 0]], nodes[pairs[:, 1]], disk_xy, disk_r)]
+            pairs = pairs[~segments_occluded(nodes[pairs[:, 0]], nodes[pairs[:, 1]], disk_xy,
+                                            disk_r)]
         return pairs
 
     def _walk_all(self, roadmap: Roadmap, tri, c_vertex, c_xy, c_prev, c_next, pinch_vertex,
@@ -831,31 +831,6 @@ def _tangent_sq(dx, dy, up, un, tol2: float) -> np.ndarray:
         m = np.minimum(np.abs(sp[bad]), np.abs(sn[bad]))
         ok[bad] = m * m <= tol2 * (dx[bad] ** 2 + dy[bad] ** 2)
     return ok
-
-
-def _occluded(p: np.ndarray, q: np.ndarray, disk_xy: np.ndarray, disk_r: np.ndarray
-              ) -> np.ndarray:
-    """Segments p-q passing closer to a disk's centre than its radius (certainly hidden: the
-    disks lie inside `blocked` shrunk by eps). A filter only; it never says visible."""
-    out = np.zeros(len(p), dtype=bool)
-    live = np.arange(len(p))
-    for s in range(0, len(disk_r), _DISK_BLOCK):
-        if len(live) == 0:
-            break
-        c, r2 = disk_xy[s:s + _DISK_BLOCK], disk_r[s:s + _DISK_BLOCK] ** 2
-        a = p[live]
-        dx, dy = (q[live] - a).T
-        ll = dx * dx + dy * dy
-        ll[ll == 0] = 1.0
-        cx = c[None, :, 0] - a[:, 0:1]
-        cy = c[None, :, 1] - a[:, 1:2]
-        t = np.clip((cx * dx[:, None] + cy * dy[:, None]) / ll[:, None], 0.0, 1.0)
-        cx -= t * dx[:, None]
-        cy -= t * dy[:, None]
-        hit = np.any(cx * cx + cy * cy < r2[None, :], axis=1)
-        out[live[hit]] = True
-        live = live[~hit]
-    return out
 
 
 def _points_only(points: np.ndarray):

@@ -237,29 +237,8 @@ class Roadmap:
         return src, node
 
     def _occluded(self, p: np.ndarray, q: np.ndarray) -> np.ndarray:
-        """Segments p[i]-q[i] that pass closer to a disk's centre than its radius, the disks
-        lying inside `blocked` shrunk by eps: certainly not visible (a filter only; it never
-        says a segment is visible). Largest disks first; culled segments drop out."""
-        out = np.zeros(len(p), dtype=bool)
-        live = np.arange(len(p))
-        for s in range(0, len(self._disk_r), _DISK_BLOCK):
-            if len(live) == 0:
-                break
-            c = self._disk_xy[s:s + _DISK_BLOCK]
-            r2 = self._disk_r[s:s + _DISK_BLOCK] ** 2
-            a = p[live]
-            dx, dy = (q[live] - a).T
-            ll = dx * dx + dy * dy
-            ll[ll == 0] = 1.0
-            cx = c[None, :, 0] - a[:, 0:1]
-            cy = c[None, :, 1] - a[:, 1:2]
-            t = np.clip((cx * dx[:, None] + cy * dy[:, None]) / ll[:, None], 0.0, 1.0)
-            cx -= t * dx[:, None]
-            cy -= t * dy[:, None]
-            hit = np.any(cx * cx + cy * cy < r2[None, :], axis=1)
-            out[live[hit]] = True
-            live = live[~hit]
-        return out
+        """Segments p[i]-q[i] certainly hidden by one of this road map's disks (a filter)."""
+        return segments_occluded(p, q, self._disk_xy, self._disk_r)
 
     def _tangent_at_node(self, origin: np.ndarray, src: np.ndarray, vert: np.ndarray
                          ) -> tuple[np.ndarray, np.ndarray]:
@@ -644,3 +623,29 @@ def build_roadmap(free: FreeSpace) -> Roadmap:
         "seconds": timing,
     }
     return roadmap
+
+
+def segments_occluded(p: np.ndarray, q: np.ndarray, disk_xy: np.ndarray, disk_r: np.ndarray
+                      ) -> np.ndarray:
+    """Segments p[i]-q[i] that pass closer to a disk's centre than its radius, the disks
+    lying inside `blocked` shrunk by eps: certainly not visible (a filter only; it never says
+    a segment is visible). Largest disks first; culled segments drop out."""
+    out = np.zeros(len(p), dtype=bool)
+    live = np.arange(len(p))
+    for s in range(0, len(disk_r), _DISK_BLOCK):
+        if len(live) == 0:
+            break
+        c, r2 = disk_xy[s:s + _DISK_BLOCK], disk_r[s:s + _DISK_BLOCK] ** 2
+        a = p[live]
+        dx, dy = (q[live] - a).T
+        ll = dx * dx + dy * dy
+        ll[ll == 0] = 1.0
+        cx = c[None, :, 0] - a[:, 0:1]
+        cy = c[None, :, 1] - a[:, 1:2]
+        t = np.clip((cx * dx[:, None] + cy * dy[:, None]) / ll[:, None], 0.0, 1.0)
+        cx -= t * dx[:, None]
+        cy -= t * dy[:, None]
+        hit = np.any(cx * cx + cy * cy < r2[None, :], axis=1)
+        out[live[hit]] = True
+        live = live[~hit]
+    return out

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-from ._visibility import Triangulation
+from ._visibility import Triangulation, pair_edges
 
 __all__ = ["TileGrid", "TileMesh", "TileMismatch", "tile_mesh", "assemble", "vertex_ids"]
 
@@ -64,28 +64,6 @@ class TileMesh:
     on_cut: np.ndarray  # (V,) vertex lies on a cut line (shared with a neighbouring tile)
 
 
-def _pair_edges(tri: np.ndarray, nv: int) -> tuple[np.ndarray, np.ndarray]:
-    """Neighbour links of a triangle list: the edge opposite local vertex j joins the other two."""
-    n_tri = len(tri)
-    a, b = tri[:, [1, 2, 0]], tri[:, [2, 0, 1]]
-    flat = (np.minimum(a, b) * nv + np.maximum(a, b)).ravel()
-    order = np.argsort(flat, kind="stable")
-    sk = flat[order]
-    nbr = np.full(3 * n_tri, -1, dtype=np.int64)
-    nbr_k = np.full(3 * n_tri, -1, dtype=np.int64)
-    if len(sk) > 1:
-        same = sk[1:] == sk[:-1]
-        # an edge seen more than twice is not manifold: leave it closed (conservative)
-        triple = np.zeros(len(sk), dtype=bool)
-        if len(sk) > 2:
-            triple[1:-1] = same[1:] & same[:-1]
-        first = np.flatnonzero(same & ~triple[:-1] & ~triple[1:])
-        i0, i1 = order[first], order[first + 1]
-        nbr[i0], nbr[i1] = i1 // 3, i0 // 3
-        nbr_k[i0], nbr_k[i1] = i1 % 3, i0 % 3
-    return nbr.reshape(-1, 3), nbr_k.reshape(-1, 3)
-
-
 def tile_mesh(region: shapely.Geometry, bounds: np.ndarray, grid: TileGrid) -> TileMesh:
     """Triangulate the part of `region` inside one tile."""
     x0, y0, x1, y1 = map(float, bounds)
@@ -102,7 +80,7 @@ def tile_mesh(region: shapely.Geometry, bounds: np.ndarray, grid: TileGrid) -> T
     corners = shapely.get_coordinates(tris).reshape(-1, 4, 2)[:, :3].reshape(-1, 2) + 0.0
     xy, inv = np.unique(corners, axis=0, return_inverse=True)
     tri = inv.reshape(-1, 3).astype(np.int64)
-    nbr, nbr_k = _pair_edges(tri, len(xy))
+    nbr, nbr_k = pair_edges(tri, len(xy))
     on_cut = (np.isin(xy[:, 0], grid.cut_x) & ((xy[:, 0] == x0) | (xy[:, 0] == x1))) | (
         np.isin(xy[:, 1], grid.cut_y) & ((xy[:, 1] == y0) | (xy[:, 1] == y1)))
     return TileMesh(xy, tri, nbr, nbr_k, tris, on_cut)
