@@ -148,6 +148,7 @@ def order_with_states(scene: Scene, spaces: StateSpaces, *, cost: EdgeCost | Non
                               precedence=prec)
     missed, length, leaving = evaluate_order(costs, best)
     for _ in range(rounds):
+        check_time("ordering the targets")
         tour = shortest_order(_matrix(costs, best, leaving), has_finish=has_finish,
                               precedence=prec)
         if tour == best or not prec.satisfied_by(tour):
