@@ -128,7 +128,7 @@ class _CutMismatch(Exception):
     """Triangles of neighbouring cells do not share their edges along a cut."""
 
 
-def _snap_cuts(c: np.ndarray, cut_x: np.ndarray, cut_y: np.ndarray) -> None:
+def snap_cuts(c: np.ndarray, cut_x: np.ndarray, cut_y: np.ndarray) -> None:
     """Give vertices on a cut line that differ by a few ulps one value (the clipper computes
     a crossing separately for the two cells beside the cut)."""
     scale = float(np.abs(c).max()) if len(c) else 0.0
@@ -152,7 +152,7 @@ def _build(tris: np.ndarray, points: np.ndarray, cut_x: np.ndarray, cut_y: np.nd
         (0, 3, 2))
     points = np.asarray(points, dtype=float).reshape(-1, 2)
     flat_corners = corners.reshape(-1, 2).copy()
-    _snap_cuts(flat_corners, cut_x, cut_y)
+    snap_cuts(flat_corners, cut_x, cut_y)
     xy, ids = _key_ids(np.concatenate([flat_corners, points]))
     n_tri = len(corners)
     tri = ids[: 3 * n_tri].reshape(-1, 3)

@@ -17,13 +17,9 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-from ._visibility import Triangulation, pair_edges
+from ._visibility import Triangulation, pair_edges, snap_cuts
 
 __all__ = ["TileGrid", "TileMesh", "TileMismatch", "tile_mesh", "assemble", "vertex_ids"]
-
-# Relative size of the noise between two computations of one crossing point on a cut line.
-_SNAP = 1e-12
-
 
 class TileMismatch(Exception):
     """Triangles of neighbouring tiles do not share their edges along a cut."""
@@ -86,22 +82,6 @@ def tile_mesh(region: shapely.Geometry, bounds: np.ndarray, grid: TileGrid) -> T
     return TileMesh(xy, tri, nbr, nbr_k, tris, on_cut)
 
 
-def _snap(xy: np.ndarray, grid: TileGrid) -> None:
-    """Give points on one cut line whose other coordinate differs by noise one value."""
-    scale = float(np.abs(xy).max()) if len(xy) else 0.0
-    tol = _SNAP * (1.0 + scale)
-    for axis, cuts in ((0, grid.cut_x), (1, grid.cut_y)):
-        idx = np.flatnonzero(np.isin(xy[:, axis], cuts)) if len(cuts) else np.empty(0, int)
-        if len(idx) == 0:
-            continue
-        other = 1 - axis
-        idx = idx[np.lexsort((xy[idx, other], xy[idx, axis]))]
-        line, val = xy[idx, axis], xy[idx, other]
-        new_run = np.r_[True, (line[1:] != line[:-1]) | (np.diff(val) > tol)]
-        first = idx[new_run]
-        xy[idx, other] = xy[first[np.cumsum(new_run) - 1], other]
-
-
 def assemble(meshes: Sequence[TileMesh], grid: TileGrid) -> Triangulation:
     """One triangulation from the tiles' meshes (cut vertices merged, cut edges paired)."""
     own_xy, own_count, cut_xy = [], [], []
@@ -111,7 +91,7 @@ def assemble(meshes: Sequence[TileMesh], grid: TileGrid) -> Triangulation:
         cut_xy.append(m.xy[m.on_cut])
     n_own = int(sum(own_count))
     cut_all = np.concatenate(cut_xy) if cut_xy else np.zeros((0, 2))
-    _snap(cut_all, grid)
+    snap_cuts(cut_all, grid.cut_x, grid.cut_y)
     cut_uniq, cut_inv = (np.unique(cut_all, axis=0, return_inverse=True) if len(cut_all)
                          else (np.zeros((0, 2)), np.zeros(0, dtype=np.int64)))
     cut_inv = cut_inv.reshape(-1).astype(np.int64)

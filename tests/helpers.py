@@ -8,9 +8,13 @@ from __future__ import annotations
 
 import copy
 import json
+import math
 from pathlib import Path
 from typing import Any
 
+import networkx as nx
+import numpy as np
+import shapely
 import yaml
 
 __all__ = ["OMIT", "make_scene_dict", "write_scene", "REPO_CONFIG"]
@@ -67,3 +71,28 @@ def write_scene(tmp_path: Path, data: Any, name: str = "job.yaml") -> Path:
     else:
         path.write_text(yaml.safe_dump(data, sort_keys=False), encoding="utf-8")
     return path
+
+
+# A general-purpose reference for shortest lengths: networkx Dijkstra (not this project's
+# road map) over every pair of free-space vertices, each pair tested by GEOS.
+def reference_length(region: shapely.Geometry, a, b) -> float:
+    """networkx Dijkstra on the unpruned visibility graph: all region vertices and the two end
+    points, every pair tested on its own with GEOS (region.covers(segment))."""
+    if tuple(a) == tuple(b):
+        return 0.0 if region.covers(shapely.Point(a)) else math.inf
+    pts = [tuple(a), tuple(b)]
+    for ring in shapely.get_rings(shapely.get_parts(region)):
+        pts.extend(map(tuple, shapely.get_coordinates(ring)[:-1]))
+    pts = list(dict.fromkeys(pts))
+    shapely.prepare(region)
+    g = nx.Graph()
+    g.add_nodes_from(range(len(pts)))
+    i, j = np.triu_indices(len(pts), 1)
+    xy = np.asarray(pts)
+    ok = region.covers(shapely.linestrings(np.stack([xy[i], xy[j]], axis=1)))
+    for u, v in zip(i[ok], j[ok], strict=True):
+        g.add_edge(int(u), int(v), weight=math.dist(pts[u], pts[v]))
+    try:
+        return nx.dijkstra_path_length(g, 0, 1)
+    except nx.NetworkXNoPath:
+        return math.inf

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import math
 
-import networkx as nx
 import numpy as np
 import pytest
 import shapely
@@ -16,6 +15,7 @@ from planner.cspace import FreeSpace
 from planner.errors import PlanningError
 from planner.model import Travel
 from planner.roadmap import NoPath, Roadmap, build_roadmap
+from tests.helpers import reference_length
 
 EPS = 1e-7  # in the tests' length unit; a scene here is about 100 long
 
@@ -30,30 +30,6 @@ def free_space(blocked: shapely.Geometry, box: shapely.Polygon | None = None,
         blocked=blocked, region=box.difference(blocked), obstacle_ids=(),
         pieces=np.empty(0, dtype=object), piece_owner=np.empty(0, dtype=np.int64), key="test",
     )
-
-
-def reference_length(region: shapely.Geometry, a, b) -> float:
-    """networkx Dijkstra on the unpruned visibility graph: all region vertices and the two end
-    points, every pair tested on its own with GEOS (region.covers(segment))."""
-    if tuple(a) == tuple(b):
-        return 0.0
-    pts = [tuple(a), tuple(b)]
-    for ring in shapely.get_rings(shapely.get_parts(region)):
-        pts.extend(map(tuple, shapely.get_coordinates(ring)[:-1]))
-    pts = list(dict.fromkeys(pts))
-    shapely.prepare(region)
-    g = nx.Graph()
-    g.add_nodes_from(range(len(pts)))
-    pairs = [(i, j) for i in range(len(pts)) for j in range(i + 1, len(pts))]
-    lines = shapely.linestrings([[pts[i], pts[j]] for i, j in pairs])
-    ok = region.covers(lines)
-    for (i, j), good in zip(pairs, ok, strict=True):
-        if good:
-            g.add_edge(i, j, weight=math.dist(pts[i], pts[j]))
-    try:
-        return nx.dijkstra_path_length(g, 0, 1)
-    except nx.NetworkXNoPath:
-        return math.inf
 
 
 def leg_or_inf(roadmap: Roadmap, a, b) -> float:

@@ -15,8 +15,6 @@ import json
 import math
 from dataclasses import replace
 
-import networkx as nx
-import numpy as np
 import pytest
 import shapely
 import yaml
@@ -33,7 +31,7 @@ from planner.scene import load_scene_bytes
 from planner.states import StateTracker
 from planner.verify import verify_route
 from tests._contract_states import contract_leg_state
-from tests.helpers import REPO_CONFIG
+from tests.helpers import REPO_CONFIG, reference_length
 
 SETTINGS = load_settings(REPO_CONFIG)
 HEAD = [[-2, -2], [2, -2], [2, 2], [-2, 2]]
@@ -42,29 +40,6 @@ OUTLINES = ([[-6, -1], [6, -1], [6, 1], [-6, 1]], [[-1, -5], [1, -5], [1, 5], [-
 
 def load(data: dict):
     return load_scene_bytes(json.dumps(data).encode(), "s.json", SETTINGS)
-
-
-def reference_length(region: shapely.Geometry, a, b) -> float:
-    """networkx Dijkstra on the unpruned visibility graph: all region vertices and the two end
-    points, every pair tested on its own with GEOS (region.covers(segment))."""
-    if tuple(a) == tuple(b):
-        return 0.0 if region.covers(shapely.Point(a)) else math.inf
-    pts = [tuple(a), tuple(b)]
-    for ring in shapely.get_rings(shapely.get_parts(region)):
-        pts.extend(map(tuple, shapely.get_coordinates(ring)[:-1]))
-    pts = list(dict.fromkeys(pts))
-    shapely.prepare(region)
-    g = nx.Graph()
-    g.add_nodes_from(range(len(pts)))
-    i, j = np.triu_indices(len(pts), 1)
-    xy = np.asarray(pts)
-    ok = region.covers(shapely.linestrings(np.stack([xy[i], xy[j]], axis=1)))
-    for u, v in zip(i[ok], j[ok], strict=True):
-        g.add_edge(int(u), int(v), weight=math.dist(pts[u], pts[v]))
-    try:
-        return nx.dijkstra_path_length(g, 0, 1)
-    except nx.NetworkXNoPath:
-        return math.inf
 
 
 class StaticReference:
