@@ -41,7 +41,7 @@ def stage_cpu(run: dict, stage: str) -> float:
 
 
 def _stage_table(runs: list[dict]) -> list[str]:
-    head = ("| scene | vertices | obstacles | convex pieces | nodes | " + " | ".join(STAGES)
+    head = ("| scene | vertices | obstacles | grown shapes | nodes | " + " | ".join(STAGES)
             + " | leg (cold) median / max ms | `sidestep plan` wall / CPU s | peak MiB |")
     out = [head, "|" + " --- |" * (head.count("|") - 1)]
     for run in runs:
@@ -63,9 +63,8 @@ def _stage_table(runs: list[dict]) -> list[str]:
 
 def _growth_table(runs: list[dict]) -> list[str]:
     stages = ("cspace", "roadmap", "load", "plan")
-    out = ["| kind | sizes | " + " | ".join(stages) + " | `sidestep plan` CPU | reflex vertices "
-           "| cspace against its convex pieces |",
-           "|" + " --- |" * (len(stages) + 5)]
+    out = ["| kind | sizes | " + " | ".join(stages) + " | `sidestep plan` CPU | reflex vertices |",
+           "|" + " --- |" * (len(stages) + 4)]
     by_kind: dict[str, list[dict]] = {}
     for run in runs:
         by_kind.setdefault(run["kind"], []).append(run)
@@ -86,10 +85,8 @@ def _growth_table(runs: list[dict]) -> list[str]:
             if ca and cb:
                 cells.append(_f(exponent(na, ca["reflex_input_vertices"], nb,
                                          cb["reflex_input_vertices"])))
-                cells.append(_f(exponent(ca["pieces"], stage_cpu(a, "cspace"), cb["pieces"],
-                                         stage_cpu(b, "cspace"))))
             else:
-                cells += ["-", "-"]
+                cells.append("-")
             out.append("| " + " | ".join(cells) + " |")
     return out
 
@@ -192,6 +189,9 @@ def results_markdown(res: dict) -> str:
         "",
         "### Stages (CPU seconds, medians)",
         "",
+        "grown shapes = the C-obstacle pieces the configuration space unites (one per "
+        "non-convex outline by convolution, one per convex outline, circle or convex piece of a "
+        "fallback). "
         "load = read, parse and validate the scene; cspace = configuration space; roadmap = the "
         "visibility road map; queries = every leg of the route by `Roadmap.path`; plan = "
         "`plan_scene` on the built road map (queries, explanations of unreachable targets, "
@@ -204,9 +204,9 @@ def results_markdown(res: dict) -> str:
         "",
         "### Growth exponents (k in t ~ n^k, from CPU medians)",
         "",
-        "n is the number of obstacle vertices, except in the last two columns: how the count of "
-        "reflex (inward-turning) vertices grows with n in these scenes, and the configuration "
-        "space's time against its number of convex pieces.",
+        "n is the number of obstacle vertices, except in the last column: how the count of "
+        "reflex (inward-turning) vertices grows with n in these scenes (a convex decomposition's "
+        "work follows these; the convolution's follows all vertices).",
         "",
         *_growth_table(runs),
         "",

@@ -49,8 +49,8 @@ def _peak_kib() -> int:
 
 
 def _reflex_count(scene) -> int:
-    """Polygon obstacle vertices where the outline turns inwards (the convex decomposition's
-    work grows with these, not with all vertices)."""
+    """Polygon obstacle vertices where the outline turns inwards (a convex decomposition's work
+    grows with these; they grow faster than all vertices in the sparse scenes)."""
     import numpy as np
 
     total = 0

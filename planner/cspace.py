@@ -6,9 +6,12 @@ why a point cannot be reached).
 Method (exact where cheap, conservative where approximate): the footprint F is reflected (-F),
 cut into convex pieces, and each piece is grown by the clearance with a polygon circumscribed
 about the disk (Minkowski sums are associative, so growing -F once equals growing every sum).
-Polygon obstacles are cut into convex pieces and each piece is summed with each grown footprint
-piece by the edge merge; a circle obstacle is each raw -F piece summed with a circumscribed
-polygon of radius (radius + clearance) at its centre. The union of all pieces is `blocked`.
+Polygon outlines first lose inward zig-zags shallower than a tenth of the arc tolerance
+(outward only: the rounding noise of finely sampled curves). A convex outline is summed with
+each grown footprint piece by the edge merge; a non-convex one by the convolution of the whole
+outline with the piece (geometry/convolution.py), checked, and cut into convex pieces only if
+that check fails. A circle obstacle is each raw -F piece summed with a circumscribed polygon of
+radius (radius + clearance) at its centre. The union of all pieces is `blocked`.
 """
 
 from __future__ import annotations
@@ -27,17 +30,24 @@ from .geometry import (
     Rings,
     circumscribed_polygons,
     convex_decomposition,
+    convex_mask,
     convex_sums,
+    drop_collinear,
+    fill_shallow_dents,
     grow_convex,
+    orient_ccw,
+    polygon_sums,
     start_lowest,
 )
 from .model import Obstacle, Ring, Scene, Travel
 
 __all__ = [
+    "DENT_FILL_PER_ARC_TOLERANCE",
     "EPS_PER_RESOLUTION",
     "FreeSpace",
     "build_free_space",
     "free_space_key",
+    "obstacle_digest",
     "c_obstacle_pieces",
     "checked_union",
 ]
@@ -46,7 +56,12 @@ __all__ = [
 # below anything the output can express, far above floating-point noise at table sizes.
 EPS_PER_RESOLUTION = 1e-3
 
-_KEY_VERSION = b"sidestep-cspace-1"  # bump when the construction changes what it returns
+# Inward vertices of an outline less deep than this fraction of the arc tolerance are filled
+# before growing (outward only): the zig-zag of rounded, finely sampled curves, which would
+# otherwise cost a convex piece or a trip through the footprint each for nothing.
+DENT_FILL_PER_ARC_TOLERANCE = 0.1
+
+_KEY_VERSION = b"sidestep-cspace-2"  # bump when the construction changes what it returns
 
 Footprint = Ring | shapely.Polygon | shapely.MultiPolygon
 
@@ -70,7 +85,7 @@ class FreeSpace:
     blocked: shapely.Geometry
     region: shapely.Geometry
     obstacle_ids: tuple[str, ...]
-    pieces: np.ndarray  # shapely Polygons: the convex C-obstacle pieces
+    pieces: np.ndarray  # shapely Polygons: C-obstacle pieces (a whole outline's sum, or convex)
     piece_owner: np.ndarray  # index into obstacle_ids, one per piece
     key: str
     _grown_cache: dict = field(default_factory=dict, repr=False)
@@ -167,10 +182,13 @@ def _reflected_pieces(footprint: Footprint) -> Rings:
 def c_obstacle_pieces(
     obstacles: Sequence[Obstacle], footprint: Footprint, clearance: float, arc_tolerance: float
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Convex C-obstacle pieces (shapely Polygons) and, per piece, the index of its obstacle.
+    """C-obstacle pieces (shapely Polygons) and, per piece, the index of its obstacle.
 
-    Every obstacle given is grown (filter passed-over ones before). Exact for polygons up to
-    the clearance, whose round corners are approximated from outside within arc_tolerance.
+    A piece is a non-convex outline's whole sum with one footprint piece, or a convex sum
+    (convex outlines, circles, and the convex pieces of an outline whose convolution failed its
+    check). Every obstacle given is grown (filter passed-over ones before). Exact for polygons
+    up to the clearance, whose round corners are approximated from outside within
+    arc_tolerance, and the filled hair-thin dents (outward, a tenth of arc_tolerance at most).
     """
     raw = _reflected_pieces(footprint)
     if clearance > 0:
@@ -184,14 +202,32 @@ def c_obstacle_pieces(
     parts: list[Rings] = []
     owners: list[np.ndarray] = []
 
+    whole: list[np.ndarray] = []  # sums of whole outlines (shapely Polygons), by convolution
+    whole_owner: list[np.ndarray] = []
     if len(poly_idx):
-        outlines = Rings.from_list(obstacles[i].polygon for i in poly_idx).to_polygons()
-        pieces, piece_of = convex_decomposition(outlines)
-        p = len(pieces)
-        ia = np.repeat(np.arange(p), nf)
-        ib = np.tile(np.arange(nf), p)
-        parts.append(convex_sums(pieces, grown, ia, ib))
-        owners.append(poly_idx[piece_of[ia]])
+        rings = drop_collinear(orient_ccw(Rings.from_list(obstacles[i].polygon
+                                                          for i in poly_idx)))
+        rings = fill_shallow_dents(rings, DENT_FILL_PER_ARC_TOLERANCE * arc_tolerance)
+        by_pieces = convex_mask(rings)  # a convex outline is its own piece: the edge merge
+        concave = np.flatnonzero(~by_pieces)
+        if len(concave):
+            sums, ok = _outline_sums(rings.select(concave), grown, clearance, arc_tolerance)
+            good = ok.all(axis=0)  # an outline whose sum failed a check goes by pieces
+            by_pieces[concave[~good]] = True
+            whole.append(sums[:, good].ravel())
+            whole_owner.append(np.tile(poly_idx[concave[good]], nf))
+        if by_pieces.any():
+            # Cleaning can flatten a sliver to a ring without area: such a one goes as given.
+            which = np.flatnonzero(by_pieces)
+            outlines = rings.select(which).to_polygons()
+            flat = ~(shapely.area(outlines) > 0)
+            outlines[flat] = [shapely.Polygon(obstacles[poly_idx[i]].polygon) for i in which[flat]]
+            pieces, piece_of = convex_decomposition(outlines)
+            p = len(pieces)
+            ia = np.repeat(np.arange(p), nf)
+            ib = np.tile(np.arange(nf), p)
+            parts.append(convex_sums(pieces, grown, ia, ib))
+            owners.append(poly_idx[np.flatnonzero(by_pieces)[piece_of[ia]]])
 
     if len(circ_idx):
         circles = [obstacles[i].circle for i in circ_idx]
@@ -204,14 +240,29 @@ def c_obstacle_pieces(
         parts.append(convex_sums(disks, raw, ia, ib))
         owners.append(circ_idx[ia])
 
-    if not parts:
+    if not parts and not whole:
         return np.empty(0, dtype=object), np.zeros(0, dtype=np.int64)
-    polygons = Rings.concat(parts).to_polygons()
-    owner = np.concatenate(owners)
+    polygons = Rings.concat(parts).to_polygons() if parts else np.empty(0, dtype=object)
     bad = ~shapely.is_valid(polygons)
     if bad.any():  # a convex piece can only be invalid by rounding: its hull contains it
         polygons[bad] = shapely.convex_hull(polygons[bad])
+    polygons = np.concatenate([*whole, polygons])
+    owner = np.concatenate([*whole_owner, *owners]).astype(np.int64)
     return polygons, owner
+
+
+def _outline_sums(rings: Rings, grown: Rings, clearance: float, arc_tolerance: float
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Each outline summed with each grown footprint piece by convolution: Polygons (nf, k)
+    and whether each passed its checks (nf, k).
+
+    A cycle vertex may sit off the result only by GEOS's snapping fallback; a thousandth of the
+    arc tolerance is far below what the grown corners already add outside the exact sum.
+    """
+    tol = 1e-3 * min(arc_tolerance, clearance) if clearance > 0 else 1e-3 * arc_tolerance
+    sums, ok = zip(*(polygon_sums(rings, grown.ring(f), tol) for f in range(len(grown))),
+                   strict=True)
+    return np.stack(sums), np.stack(ok)
 
 
 def _polygonal(geom: shapely.Geometry) -> shapely.Geometry:
@@ -296,32 +347,46 @@ def _avoided(scene: Scene, obstacles: Sequence[Obstacle] | None) -> tuple[Obstac
     return tuple(o for o in given if o.is_avoided(scene.head.ride_height))
 
 
+def obstacle_digest(obstacle: Obstacle) -> bytes:
+    """sha256 of one obstacle's id and geometry, as `free_space_key` hashes it (callers that key
+    many free spaces over the same obstacles compute these once)."""
+    h = hashlib.sha256(obstacle.id.encode() + b"\0")
+    if obstacle.polygon is not None:
+        h.update(b"P" + np.asarray(obstacle.polygon, dtype=np.float64).tobytes())
+    else:
+        h.update(b"C" + struct.pack("<3d", *obstacle.circle.center, obstacle.circle.radius))
+    return h.digest()
+
+
 def free_space_key(
     scene: Scene,
     settings: Settings,
     *,
     obstacles: Sequence[Obstacle] | None = None,
     footprint: Footprint | None = None,
+    digests: Sequence[bytes] | None = None,
 ) -> str:
     """sha256 hex over everything `build_free_space` with the same arguments depends on.
 
     Covers the avoided obstacles' ids and geometry, the footprint, clearance, eps, arc
-    tolerance, travel and units; cheap enough to compute before a cache lookup.
+    tolerance, travel and units; cheap enough to compute before a cache lookup. `digests`, if
+    given, are `obstacle_digest` of each obstacle in `obstacles`, in order.
     """
     clearance, eps = _clearance_and_eps(scene, settings)
     fp = scene.head.footprint if footprint is None else footprint
+    given = scene.obstacles if obstacles is None else obstacles
+    if digests is None:
+        digests = [obstacle_digest(o) if o.is_avoided(scene.head.ride_height) else b""
+                   for o in given]
     h = hashlib.sha256(_KEY_VERSION)
     h.update(scene.units.encode() + b"\0")
     t = scene.travel
     h.update(struct.pack("<7d", t.xmin, t.xmax, t.ymin, t.ymax, clearance, eps,
                          settings.arc_tolerance))
     h.update(shapely.to_wkb(shapely.normalize(_footprint_geometry(fp))))
-    for o in _avoided(scene, obstacles):
-        h.update(o.id.encode() + b"\0")
-        if o.polygon is not None:
-            h.update(b"P" + np.asarray(o.polygon, dtype=np.float64).tobytes())
-        else:
-            h.update(b"C" + struct.pack("<3d", *o.circle.center, o.circle.radius))
+    for o, d in zip(given, digests, strict=True):
+        if o.is_avoided(scene.head.ride_height):
+            h.update(d)
     return h.hexdigest()
 
 

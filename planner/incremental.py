@@ -44,6 +44,7 @@ from .cspace import (
     c_obstacle_pieces,
     checked_union,
     free_space_key,
+    obstacle_digest,
 )
 from .model import Obstacle, Ring, Scene
 from .roadmap import Roadmap, build_roadmap, reflex_corners, segments_occluded
@@ -208,6 +209,7 @@ class FootprintSpace:
         self.settings = settings
         self.footprint = footprint
         self.obstacles = tuple(obstacles)
+        self._digests = [obstacle_digest(o) for o in self.obstacles]  # for each state's key
         self.keep = max(1, keep)
         self.clearance = scene.head.margin + settings.resolution
         self.eps = settings.resolution * EPS_PER_RESOLUTION
@@ -508,7 +510,8 @@ class FootprintSpace:
             eps=self.eps, blocked=blocked, region=region,
             obstacle_ids=tuple(o.id for o in obstacles), pieces=pieces, piece_owner=owner,
             key=free_space_key(self.scene, self.settings, obstacles=obstacles,
-                               footprint=self.footprint),
+                               footprint=self.footprint,
+                               digests=[self._digests[i] for i in members]),
         )
 
     def _build(self, present: frozenset[int], parent: StateSpace | None) -> StateSpace:
@@ -796,7 +799,7 @@ class FootprintSpace:
 
 def _inscribed_disks(pieces: np.ndarray, eps: float, scale: float
                      ) -> tuple[np.ndarray, np.ndarray]:
-    """Per convex piece, the centre and radius of a disk inside it shrunk by eps (radius <= 0
+    """Per piece, the centre and radius of a disk inside it shrunk by eps (radius <= 0
     where the piece is too thin): the largest inscribed circle, less 4 eps and a little."""
     if len(pieces) == 0:
         return np.empty((0, 2)), np.empty(0)
