@@ -7,7 +7,9 @@ The entry point's name is the adapter's name in planner.yaml (`adapters: [csv, p
 
 from __future__ import annotations
 
+import os
 import re
+import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from importlib.metadata import entry_points
@@ -56,8 +58,35 @@ def _problem(name: str, adapter: Any) -> str | None:
     return None
 
 
+_CACHE: dict = {}  # the last scan: {"key": path signature, "entries": [...]}
+
+
+def _path_signature() -> tuple:
+    """sys.path and each folder's modification time: installing or removing a distribution
+    adds or removes its metadata folder in one of them, which changes that folder's mtime."""
+    out = []
+    for entry in sys.path:
+        try:
+            out.append((entry, os.stat(entry or ".").st_mtime_ns))
+        except OSError:
+            out.append((entry, None))
+    return tuple(out)
+
+
 def adapter_entries() -> list[AdapterEntry]:
-    """Every registration in the group, loaded where possible, sorted by name."""
+    """Every registration in the group, loaded where possible, sorted by name.
+
+    Scanning the installed distributions takes ~20 ms, so the result is kept until sys.path or
+    one of its folders changes (a plugin installed or removed, even while the daemon runs).
+    """
+    key = _path_signature()
+    if _CACHE.get("key") != key:
+        _CACHE["entries"] = _scan_entries()
+        _CACHE["key"] = key
+    return list(_CACHE["entries"])
+
+
+def _scan_entries() -> list[AdapterEntry]:
     entries = []
     for ep in entry_points(group=GROUP):
         dist = getattr(getattr(ep, "dist", None), "name", None)

@@ -650,11 +650,18 @@ def _fp_key(footprint) -> bytes:
 
 
 def _num(v: float, units: str, step: float | None = None) -> str:
+    """A length for a sentence: 2 decimals (or the step's); "less than 0.01 mm" for a length
+    too small to show, rather than a misleading "0 mm"."""
     digits = 2 if step is None else max(0, -int(math.floor(math.log10(step) + 1e-9)))
+    unit = "in" if units == "inch" else units
     text = f"{v:.{digits}f}"
     if "." in text:
         text = text.rstrip("0").rstrip(".")
-    return f"{text} {'in' if units == 'inch' else units}"
+    if text in ("0", "-0"):
+        if v > 0:
+            return f"less than {10.0 ** -digits:.{digits}f} {unit}"
+        text = "0"
+    return f"{text} {unit}"
 
 
 def _pair_name(c: Contact) -> str:

@@ -24,7 +24,6 @@ pieces, so a state's geometry does not depend on the path by which it was reache
 
 from __future__ import annotations
 
-import dataclasses
 import time
 from collections import OrderedDict
 from collections.abc import Sequence
@@ -47,7 +46,13 @@ from .cspace import (
     obstacle_digest,
 )
 from .model import Obstacle, Ring, Scene
-from .roadmap import Roadmap, build_roadmap, reflex_corners, segments_occluded
+from .roadmap import (
+    Roadmap,
+    assemble_roadmap,
+    build_roadmap,
+    reflex_corners,
+    segments_occluded,
+)
 from .states import State, footprint_of, present_obstacles
 from .tiles import TileGrid, TileMesh, TileMismatch, assemble, tile_mesh, vertex_ids
 
@@ -589,18 +594,12 @@ class FootprintSpace:
         # and a little, lies inside `blocked` shrunk by eps
         disk_xy, disk_r = self._disks(sorted(present))
         occ_node = vertex_node[c_vertex]
-        try:
-            roadmap = _make_roadmap(
-                free=free, nodes=nodes, graph=csr_matrix((n, n)), stats={}, _tri=tri,
-                _shrunk=shrunk, _tol=self.tol, _vertex_node=vertex_node,
-                _corner_ptr=corner_ptr, _corner_prev=c_prev, _corner_next=c_next,
-                _pinch=is_pinch, _occ_xy=c_xy, _occ_up=_unit(c_prev - c_xy),
-                _occ_un=_unit(c_next - c_xy), _occ_node=occ_node,
-                _pinch_nodes=vertex_node[pinch_vertex], _disk_xy=disk_xy, _disk_r=disk_r,
-            )
-        except _OutOfStep as exc:  # roadmap.Roadmap changed: build this state whole
-            self.stats["out_of_step"] = str(exc)
-            return self._whole(present, clusters, free)
+        roadmap = assemble_roadmap(
+            free, nodes, tri=tri, shrunk=shrunk, tol=self.tol, vertex_node=vertex_node,
+            corner_ptr=corner_ptr, corner_prev=c_prev, corner_next=c_next, corner_xy=c_xy,
+            corner_vertex=c_vertex, pinch=is_pinch, pinch_vertex=pinch_vertex,
+            disk_xy=disk_xy, disk_r=disk_r,
+        )
 
         # which nodes a change may concern, and the parent's edges that still hold
         t1 = time.perf_counter()
@@ -856,33 +855,6 @@ def _graph(nodes: np.ndarray, edges: np.ndarray) -> csr_matrix:
     return csr_matrix((np.concatenate([w, w]), (np.concatenate([edges[:, 0], edges[:, 1]]),
                                                 np.concatenate([edges[:, 1], edges[:, 0]]))),
                       shape=(n, n))
-
-
-class _OutOfStep(Exception):
-    """roadmap.Roadmap has a required field this module does not know how to fill."""
-
-
-# Fields roadmap.Roadmap has had for its occlusion filter: one this module does not fill is left
-# empty (a filter only ever drops certainly hidden candidates, so an empty one costs time only).
-_EMPTY_FILTERS = {"_disk_xy": lambda: np.empty((0, 2)), "_disk_r": lambda: np.empty(0),
-                  "_disk_tree": lambda: None}
-
-
-def _make_roadmap(**parts) -> Roadmap:
-    """A Roadmap from the parts build_roadmap also makes (kept in step with its fields: an
-    unknown required field raises _OutOfStep, and the state is then built whole)."""
-    kwargs = {}
-    for f in dataclasses.fields(Roadmap):
-        if f.name in parts:
-            kwargs[f.name] = parts[f.name]
-        elif f.default is not dataclasses.MISSING or (
-                f.default_factory is not dataclasses.MISSING):
-            continue
-        elif f.name in _EMPTY_FILTERS:
-            kwargs[f.name] = _EMPTY_FILTERS[f.name]()
-        else:
-            raise _OutOfStep(f"roadmap.Roadmap field {f.name!r} is new to incremental.py")
-    return Roadmap(**kwargs)
 
 
 def _unique_pairs(pairs: np.ndarray, n: int) -> np.ndarray:

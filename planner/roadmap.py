@@ -520,6 +520,27 @@ def shrunk_blocked(free: FreeSpace) -> shapely.Geometry:
                         "part of an obstacle; refusing to plan on it")
 
 
+def assemble_roadmap(
+    free: FreeSpace, nodes: np.ndarray, *, tri, shrunk: shapely.Geometry, tol: float,
+    vertex_node: np.ndarray, corner_ptr: np.ndarray, corner_prev: np.ndarray,
+    corner_next: np.ndarray, corner_xy: np.ndarray, corner_vertex: np.ndarray,
+    pinch: np.ndarray, pinch_vertex: np.ndarray, disk_xy: np.ndarray, disk_r: np.ndarray,
+) -> Roadmap:
+    """A Roadmap with no edges yet, from the triangulation and its corner tables: the one
+    constructor that `build_roadmap` and the incremental updates (incremental.py) share.
+
+    corner_* are per corner occurrence (a triangulation vertex where the free space's boundary
+    turns, once per ring passing through it): its vertex, position and ring neighbours."""
+    return Roadmap(
+        free=free, nodes=nodes, graph=csr_matrix((len(nodes), len(nodes))), stats={},
+        _tri=tri, _shrunk=shrunk, _tol=tol, _vertex_node=vertex_node, _corner_ptr=corner_ptr,
+        _corner_prev=corner_prev, _corner_next=corner_next, _pinch=pinch,
+        _occ_xy=corner_xy, _occ_up=_unit(corner_prev - corner_xy),
+        _occ_un=_unit(corner_next - corner_xy), _occ_node=vertex_node[corner_vertex],
+        _pinch_nodes=vertex_node[pinch_vertex], _disk_xy=disk_xy, _disk_r=disk_r,
+    )
+
+
 def build_roadmap(free: FreeSpace) -> Roadmap:
     """The tangent visibility graph of the free space (uses free.box, blocked, region, eps)."""
     t0 = time.perf_counter()
@@ -581,13 +602,11 @@ def build_roadmap(free: FreeSpace) -> Roadmap:
     t1 = time.perf_counter()
     disk_xy, disk_r = inner_disks(shrunk, free.box, eps=free.eps)
     timing["disks"] = time.perf_counter() - t1
-    roadmap = Roadmap(
-        free=free, nodes=nodes, graph=csr_matrix((len(nodes), len(nodes))), stats={},
-        _tri=tri, _shrunk=shrunk, _tol=tol, _vertex_node=vertex_node, _corner_ptr=corner_ptr,
-        _corner_prev=c_prev, _corner_next=c_next, _pinch=is_pinch,
-        _occ_xy=c_xy, _occ_up=_unit(c_prev - c_xy), _occ_un=_unit(c_next - c_xy),
-        _occ_node=vertex_node[c_vertex], _pinch_nodes=vertex_node[pinch_vertex],
-        _disk_xy=disk_xy, _disk_r=disk_r,
+    roadmap = assemble_roadmap(
+        free, nodes, tri=tri, shrunk=shrunk, tol=tol, vertex_node=vertex_node,
+        corner_ptr=corner_ptr, corner_prev=c_prev, corner_next=c_next, corner_xy=c_xy,
+        corner_vertex=c_vertex, pinch=is_pinch, pinch_vertex=pinch_vertex,
+        disk_xy=disk_xy, disk_r=disk_r,
     )
     t1 = time.perf_counter()
     src, vert = roadmap._tangent_at_node(c_xy, src, vert)

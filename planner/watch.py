@@ -29,6 +29,7 @@ from .dropnames import why_not_a_scene
 from .errors import ConfigError, SceneError, format_error
 from .files import is_temp_name, output_stem
 from .jobs import JobOutcome, route_file_name, run_job
+from .outlock import LOCK_NAME, OutLock
 from .plan import PlanCache
 from .scene import load_scene_bytes
 from .superseded import (
@@ -46,7 +47,6 @@ from .watchstate import FINAL_STATES, SceneRecord, StatusBoard, read_status, utc
 __all__ = ["Watcher", "run_watch", "config_files_sha256", "LOCK_NAME"]
 
 LOG = logging.getLogger("sidestep.watch")
-LOCK_NAME = ".sidestep-watch.lock"
 EXIT_CLEAN = 0
 EXIT_USAGE = 2
 _CONFIG = ("config",)  # settler key of the config folder (never a file name: names are str)
@@ -168,9 +168,12 @@ def _make_observer(options: WatchOptions):
 class Watcher:
     """One daemon run: DROP in, OUT out, until `stop` is called (or SIGTERM/SIGINT)."""
 
-    def __init__(self, drop: Path, out: Path, settings: Settings, options: WatchOptions) -> None:
+    def __init__(self, drop: Path, out: Path, settings: Settings, options: WatchOptions,
+                 lock: OutLock | None = None) -> None:
         self.drop = drop
         self.out = out
+        self.lock = lock  # held by run_watch; kept here while OUT comes and goes
+        self._lock_problem: str | None = None
         self.settings = settings
         self.options = options
         self.config_dir = Path(settings.config_dir).resolve() if settings.config_dir else None
@@ -316,6 +319,9 @@ class Watcher:
             self._drain(max(0.0, min(timeout, self.options.heartbeat_s)))
             if self._stop.is_set():
                 break
+            self._keep_lock()
+            if self._stop.is_set():
+                break
             now = time.monotonic()
             if now >= self._next_rescan:
                 self._rescan()
@@ -332,6 +338,29 @@ class Watcher:
             self.board.set_queued(len(self.settler))
             if self._dirty:
                 self._flush()
+
+    def _keep_lock(self) -> None:
+        """Take the output folder's lock again if its file went with a deleted OUT; stop if
+        another watcher took the folder meanwhile (two must never write into one OUT)."""
+        if self.lock is None:
+            return
+        try:
+            gone = self.lock.held_file_is_gone()
+            other = self.lock.keep() if gone else None
+        except OSError as exc:
+            problem = f"cannot lock {self.lock.path} again ({exc.strerror or exc})"
+            if problem != self._lock_problem:
+                LOG.warning("%s; trying again", problem)
+            self._lock_problem = problem
+            return
+        self._lock_problem = None
+        if other is not None:
+            LOG.error("another watcher (pid %s) took %s while its lock file was gone; stopping "
+                      "(fix: run one watcher per output folder)", other, self.out)
+            self.stop()
+        elif gone:
+            LOG.warning("the lock file %s had gone (output folder deleted?); taken again",
+                        self.lock.path)
 
     def _drain(self, timeout: float) -> None:
         """Take every queued event, waiting up to `timeout` for the first one."""
@@ -732,24 +761,6 @@ def _setup_logging(out: Path, options: WatchOptions, verbose: bool) -> None:
     LOG.addHandler(handler)
 
 
-def _take_lock(out: Path):
-    """An exclusive lock on OUT/.sidestep-watch.lock (released by the kernel even on kill -9)."""
-    import fcntl
-
-    fd = os.open(out / LOCK_NAME, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o644)
-    try:
-        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    except OSError:
-        try:
-            other = os.read(fd, 32).decode("ascii", "replace").strip() or "?"
-        finally:
-            os.close(fd)
-        return None, other
-    os.ftruncate(fd, 0)
-    os.write(fd, f"{os.getpid()}\n".encode("ascii"))
-    return fd, None
-
-
 def run_watch(drop: Path, out: Path | None, settings: Settings, *, verbose: bool = False) -> int:
     """Run the daemon on `drop`, writing into `out` (default: `drop`) until SIGTERM or SIGINT."""
     drop = Path(drop)
@@ -776,12 +787,13 @@ def run_watch(drop: Path, out: Path | None, settings: Settings, *, verbose: bool
     except (OSError, ValueError) as exc:
         print(f"sidestep watch: {exc}", file=sys.stderr)
         return EXIT_USAGE
-    fd, other = _take_lock(out)
-    if fd is None:
+    lock = OutLock(out)
+    other = lock.take()
+    if other is not None:
         print(f"sidestep watch: another watcher (pid {other}) is already writing into {out} "
               "(fix: stop it first, or give this one another --out folder)", file=sys.stderr)
         return EXIT_USAGE
-    watcher = Watcher(drop, out, settings, options)
+    watcher = Watcher(drop, out, settings, options, lock=lock)
 
     def on_signal(signum, frame):  # noqa: ARG001 - signal handler signature
         if watcher.stopping:
@@ -797,4 +809,4 @@ def run_watch(drop: Path, out: Path | None, settings: Settings, *, verbose: bool
     finally:
         for s, handler in old.items():
             signal.signal(s, handler)
-        os.close(fd)
+        lock.release()

@@ -305,3 +305,13 @@ def test_inch_scene_speaks_inches():
     u = Explainer(scene, settings).unreachable(info.value, "start", "t1", free)
     assert "top-left and top-right are 50 in apart, the head needs 64 in there" in u.reason
     assert " mm" not in u.reason
+
+
+def test_lengths_too_small_to_show_are_not_written_as_zero():
+    # Worked examples of the message format: a real but tiny gap must not read "0 mm".
+    from planner.explain import _num
+
+    assert _num(0.0004, "mm") == "less than 0.01 mm"
+    assert _num(0.00004, "inch", 0.0001) == "less than 0.0001 in"
+    assert _num(-0.0001, "mm") == "0 mm"
+    assert _num(12.5, "mm") == "12.5 mm"

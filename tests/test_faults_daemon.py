@@ -23,6 +23,7 @@ import os
 import shutil
 import signal
 import subprocess
+import sys
 import time
 from pathlib import Path
 
@@ -33,6 +34,7 @@ from watchkit import Daemon, make_config, read_status, scene_text, sha256, wait_
 
 from planner.config import load_settings
 from planner.files import is_temp_name
+from planner.outlock import LOCK_NAME
 from planner.routefile import load_route
 from planner.scene import load_scene_bytes
 
@@ -173,6 +175,14 @@ def test_output_folder_deleted_while_running_is_made_again(env: Daemon):
     drop(env, "a.yaml", scene_text(), scenes)
     env.wait_state("a.yaml", scenes["a.yaml"])
     shutil.rmtree(env.out)
+    # The lock went with the folder: the daemon takes it again, so a second watcher started on
+    # the same folder now is still refused (two writers into one OUT would race).
+    wait_for(lambda: (env.out / LOCK_NAME).is_file() and "taken again" in env.text(), WAIT,
+             "the lock to be taken again")
+    second = subprocess.run([sys.executable, "-m", "planner.cli", "watch", str(env.drop),
+                             "--out", str(env.out), "--config", str(env.config)],
+                            capture_output=True, text=True, timeout=60)
+    assert second.returncode == 2 and f"pid {env.proc.pid}" in second.stderr
     drop(env, "b.yaml", scene_text(targets=[(300, 250)]), scenes)
     entry = env.wait_state("b.yaml", scenes["b.yaml"], timeout=WAIT)
     assert entry["state"] == "planned"
