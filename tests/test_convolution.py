@@ -16,6 +16,7 @@ from hypothesis import strategies as st
 from planner.cspace import c_obstacle_pieces
 from planner.geometry import (
     Rings,
+    bisect_polygons,
     canonical_convex,
     convolution_cycles,
     drop_collinear,
@@ -239,3 +240,31 @@ def _reflex(rings: Rings) -> int:
     e_in = p - p[rings.prev_index()]
     e_out = p[rings.next_index()] - p
     return int(np.sum(e_in[:, 0] * e_out[:, 1] - e_in[:, 1] * e_out[:, 0] < 0))
+
+
+# ---------------------------------------------------------------- bisection
+
+
+def test_bisected_parts_cover_the_polygon_and_stay_small():
+    p = comb(400, 2.0)
+    parts, owner = bisect_polygons(np.array([p, octagon(30, 20)], dtype=object), 64)
+    assert set(owner.tolist()) == {0, 1}
+    mine = parts[owner == 0]
+    assert len(mine) > 1
+    assert all(shapely.get_num_coordinates(g) - 1 <= 64 for g in mine)
+    # GEOS as the reference: the parts' union is the polygon, and their areas add up to its
+    # area (they do not overlap).
+    assert_same_area(shapely.union_all(mine), p)
+    assert sum(g.area for g in mine) == pytest.approx(p.area, rel=1e-12)
+    assert parts[owner == 1][0].equals(octagon(30, 20))  # small enough: left whole
+
+
+def test_a_long_comb_is_summed_in_parts_and_still_equals_the_reference():
+    outline = comb(300, 1.0)
+    ob = Obstacle("comb", polygon=tuple(map(tuple, np.asarray(outline.exterior.coords)[:-1])))
+    head = octagon(40, 30)
+    pieces, owner = c_obstacle_pieces([ob], np.asarray(head.exterior.coords)[:-1], 0.0, 0.05)
+    assert len(pieces) > 1 and set(owner.tolist()) == {0}
+    reflected = shapely.Polygon(-np.asarray(head.exterior.coords)[:-1])
+    # Reference: shapely CDT triangles, convex hull of pairwise sums, GEOS union.
+    assert_same_area(shapely.union_all(pieces), reference_sum(outline, reflected))

@@ -3,6 +3,7 @@ convex Minkowski sums by edge merge, sums of simple polygons with a convex one b
 and outer approximations of circles and rounded offsets."""
 
 from .arcs import circle_sides, circumscribed_polygon, circumscribed_polygons, grow_convex
+from .bisect import bisect_polygons
 from .convolution import convolution_cycles, polygon_sums, winding_numbers
 from .cuts import cut_caps, split_by_diagonals
 from .decompose import convex_decomposition, merge_faces, triangulate
@@ -25,6 +26,7 @@ from .polygons import (
 __all__ = [
     "REL_NOISE",
     "Rings",
+    "bisect_polygons",
     "canonical_convex",
     "circle_sides",
     "circumscribed_polygon",
