@@ -345,12 +345,12 @@ def test_200_mb_file_is_refused_before_reading(tmp_path, monkeypatch):
     path = tmp_path / "huge.yaml"
     with open(path, "wb") as fh:
         fh.truncate(200 * 1024 * 1024)  # sparse: takes no disk space
-    import planner.yamlload as yl
+    import planner.document as document
 
     def no_open(*args, **kwargs):
         raise AssertionError("the file was opened: the size must be checked first")
 
-    monkeypatch.setattr(yl, "open", no_open, raising=False)
+    monkeypatch.setattr(document, "open", no_open, raising=False)
     with pytest.raises(SceneError) as info:
         load_scene(path, SETTINGS)
     err = info.value
