@@ -143,7 +143,9 @@ def load_settings(config_dir: Path | None = None) -> Settings:
 
 def _read(path: Path, definition: str, build: Any) -> Any:
     """Parse one config file, check it against its schema, build it; Problem -> ConfigError."""
-    from .yamlload import Problem, check_schema, kind_of, parse_document, read_file
+    from .document import parse_document, read_file
+    from .problem import Problem, kind_of
+    from .schemacheck import check_schema
 
     data = read_file(path, _CONFIG_MAX_BYTES, ConfigError, str(path))
     doc = parse_document(data, str(path), Limits(max_file_bytes=_CONFIG_MAX_BYTES), ConfigError,
@@ -161,7 +163,7 @@ def _read(path: Path, definition: str, build: Any) -> Any:
 
 
 def _finite(value: Any) -> None:
-    from .yamlload import Problem
+    from .problem import Problem
 
     stack: list[tuple[Any, tuple]] = [(value, ())]
     while stack:
@@ -202,7 +204,7 @@ def _planner(data: dict, folder: Path) -> Settings:
 
 def _axes(data: dict) -> AxisModel | None:
     """planner.yaml's `axes` section (both axes complete) as an AxisModel, or None if absent."""
-    from .yamlload import Problem
+    from .problem import Problem
 
     if "axes" not in data:
         return None
@@ -243,7 +245,7 @@ def _heads(data: dict, settings: Settings) -> tuple[dict[str, Head], dict]:
             try:
                 override = check_axes_override(entry["axes"], "axes")
             except AxisSpecError as exc:
-                from .yamlload import Problem
+                from .problem import Problem
 
                 raise Problem(("heads", name, *exc.path.split(".")), exc.message,
                               exc.hint) from None

@@ -18,17 +18,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import shapely
 
+from .document import parse_document, read_file
 from .errors import SceneError
 from .model import FINISH, START, Circle, Head, Obstacle, Point, Ring, Scene, Target, Travel
-from .yamlload import (
-    PathPart,
-    Problem,
-    check_schema,
-    closest,
-    kind_of,
-    parse_document,
-    read_file,
-)
+from .problem import PathPart, Problem, closest, kind_of
+from .schemacheck import check_schema
 
 if TYPE_CHECKING:
     from .config import Limits, Settings

@@ -41,7 +41,8 @@ def _located(settings: Settings, path: tuple, message: str, hint: str,
     """The error with the line and column of `path` in planner.yaml, when the file can say."""
     if settings.config_dir is None:
         return None
-    from .yamlload import Problem, parse_document
+    from .document import parse_document
+    from .problem import Problem
 
     file = Path(settings.config_dir) / "planner.yaml"
     try:

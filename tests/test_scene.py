@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from planner.config import Limits, Settings, load_settings
 from planner.errors import SceneError, format_error
 from planner.scene import load_scene, load_scene_bytes
-from planner.yamlload import plain_scalar
+from planner.yamlparse import plain_scalar
 
 SETTINGS = load_settings(REPO_CONFIG)
 
@@ -396,7 +396,7 @@ def test_allowed_aliases_are_expanded():
 
 
 def test_an_aliased_number_list_does_not_hide_one_in_a_string():
-    from planner.yamlload import _parse_yaml
+    from planner.yamlparse import parse_yaml as _parse_yaml
 
     text = "a: &x [1, 2]\nb: *x\nc: \"[3, 4]\"\n"
     # PyYAML's SafeLoader as the reference
@@ -586,7 +586,7 @@ def _with_comment(text: str, at: int, comment: str) -> str:
 @hsettings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(_NUMBER_TREES, st.sampled_from([False, None, True]), st.integers(0, 40), _COMMENTS)
 def test_fast_path_reads_numbers_as_pyyaml_does(value, flow, at, comment):
-    from planner.yamlload import _parse_yaml
+    from planner.yamlparse import parse_yaml as _parse_yaml
 
     text = _with_comment(yaml.safe_dump({"v": value}, default_flow_style=flow), at, comment)
     # PyYAML's SafeLoader is the reference: for plain decimals YAML 1.1 and 1.2 agree
@@ -600,7 +600,9 @@ _ATOMS = st.sampled_from(["[", "]", ",", " ", "\n", "- ", "  ", "1", "-2.5", ".5
 @hsettings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(_ATOMS, max_size=40))
 def test_fast_path_agrees_with_reading_the_text_as_written(parts):
-    from planner.yamlload import Problem, _Builder, _parse_yaml
+    from planner.problem import Problem
+    from planner.yamlparse import _Builder
+    from planner.yamlparse import parse_yaml as _parse_yaml
 
     text = "".join(parts)
     results = []
