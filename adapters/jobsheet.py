@@ -8,13 +8,16 @@ from __future__ import annotations
 
 import html
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from planner.model import Route
 from planner.safety import CAUTIONS
 
 from .base import config_file_name
 from .section import Section
+
+if TYPE_CHECKING:
+    import shapely
 
 __all__ = ["JobSheetAdapter", "read_jobsheet_settings"]
 
@@ -109,9 +112,8 @@ class JobSheetAdapter:
         if picture and job is not None and getattr(job, "scene", None) is not None:
             from planner.render import render_svg
 
-            free = getattr(job, "free", None)
-            svg = render_svg(job.scene, route, None if free is None else free.blocked,
-                             details=False)
+            grown, label = _zones_to_draw(job)
+            svg = render_svg(job.scene, route, grown, details=False, grown_label=label)
             svg = svg.split("\n", 1)[1] if svg.startswith("<?xml") else svg
             out.append(f'<figure aria-label="picture of the scene and route">{svg}</figure>')
 
@@ -187,3 +189,31 @@ class JobSheetAdapter:
             items.append(f'<li><span class="id">{letter}: {_e(u.id)}</span>: {_e(u.reason)}</li>')
         return ("<h2>Cannot be reached</h2><ul class=\"unreachable\">" + "".join(items)
                 + "</ul>")
+
+
+def _zones_to_draw(job) -> tuple[shapely.Geometry | None, str | None]:
+    """The no-go zones for the job sheet's one picture, and the legend's words for them.
+
+    A scene that does not change has one free space. In one that changes as the job runs each
+    leg has its own zones, so one picture draws what holds on every leg: the zones of the
+    obstacles present on all of them, grown by the head alone (a carried part only adds to
+    them); `sidestep show --leg N` draws each leg's own.
+    """
+    free = getattr(job, "free", None)
+    states = getattr(job, "leg_states", ()) or ()
+    if free is None or not states:
+        return (None if free is None else free.blocked), None
+    from planner.cspace import build_free_space
+    from planner.errors import PlanningError
+
+    scene = job.scene
+    everywhere = set.intersection(*(set(s.present) for s in states))
+    obstacles = [o for o in scene.obstacles if o.id in everywhere]
+    try:
+        blocked = build_free_space(scene, job.settings, obstacles=obstacles).blocked
+    except PlanningError:
+        return None, None
+    u = "in" if scene.units == "inch" else scene.units
+    return blocked, (f"no-go zone on every leg: obstacles present throughout, grown by the head "
+                     f"outline and the {scene.head.margin:g} {u} margin (each leg's own zones: "
+                     f"sidestep show --leg N)")

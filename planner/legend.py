@@ -135,7 +135,7 @@ def legend_block(scene: Scene, route: Route | None, reasons: Sequence[tuple[str,
                  letters: dict[str, str], any_passed: bool, any_grown: bool,
                  any_carry: bool, hint_kinds: set[str], details: bool = True,
                  unlabelled: int = 0, focus: int | None = None,
-                 any_absent: bool = False) -> tuple[str, float]:
+                 any_absent: bool = False, grown_label: str | None = None) -> tuple[str, float]:
     """The key (symbols with words) and the unreachable targets with their reasons; also the
     height it takes, in px."""
     ink = PALETTE["ink"]
@@ -173,8 +173,8 @@ def legend_block(scene: Scene, route: Route | None, reasons: Sequence[tuple[str,
     if any_grown:
         entry(f'<rect x="4" y="-8" width="30" height="16" fill="{PALETTE["grown"]}" '
               f'fill-opacity="0.5" stroke="{PALETTE["target"]}" stroke-width="0.8"/>',
-              f"no-go zone for the tool point: obstacle grown by the head outline and the "
-              f"{one_decimal(scene.head.margin)} {u} margin")
+              grown_label or f"no-go zone for the tool point: obstacle grown by the head "
+              f"outline and the {one_decimal(scene.head.margin)} {u} margin")
     entry(f'<rect x="6" y="-9" width="26" height="18" fill="none" stroke="{ink}" '
           'stroke-dasharray="4 2.5" stroke-width="1.1"/>',
           "outline of the head at the start and at each target")

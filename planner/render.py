@@ -144,6 +144,7 @@ def render_svg(
     reasons: Sequence[tuple[str, str]] | None = None,
     details: bool = True,
     leg: LegView | None = None,
+    grown_label: str | None = None,
 ) -> str:
     """The picture of a scene as SVG text.
 
@@ -154,7 +155,8 @@ def render_svg(
     print them beside the picture).
     With `leg`, the scene is drawn as that leg sees it: absent obstacles faint and dashed
     (labelled why), the leg's footprint at its start, that leg highlighted and the others faint;
-    `grown` should then be that leg's grown obstacles.
+    `grown` should then be that leg's grown obstacles. `grown_label` replaces the legend's
+    words for `grown` (when it is not simply every obstacle's zone).
     """
     fr = frame_for(scene)
     units = scene.units
@@ -204,7 +206,7 @@ def render_svg(
                                     grown is not None, bool(_carried_outlines(scene, order)),
                                     hint_kinds, details, unlabelled,
                                     focus=leg.number if leg is not None else None,
-                                    any_absent=bool(faint))
+                                    any_absent=bool(faint), grown_label=grown_label)
     draw_h = fr.height + BELOW_HEIGHT
     width = PAGE_PAD + fr.width + 28 + LEGEND_WIDTH + PAGE_PAD
     height = PAGE_PAD + TITLE_HEIGHT + max(draw_h, legend_h) + PAGE_PAD

@@ -16,6 +16,7 @@ from types import SimpleNamespace
 
 import numpy as np
 import pytest
+import shapely
 import yaml
 from PIL import Image
 
@@ -144,3 +145,43 @@ def test_job_sheet_renders_in_headless_chromium(planned, tmp_path: Path):
     route = np.array([int(PALETTE["route"][i:i + 2], 16) for i in (1, 3, 5)])
     near = (np.abs(img - route).max(axis=2) <= 30).sum()
     assert near > 200, near
+
+
+def test_a_changing_scene_draws_only_the_zones_that_hold_on_every_leg(tmp_path):
+    """The magazines demo swings each empty magazine away (`until:`): the one picture must not
+    show a no-go zone around it as if it stood there for the whole job."""
+    from adapters.jobsheet import _zones_to_draw
+    from planner.plan import plan_scene
+    from planner.scene import load_scene
+
+    settings = load_settings(REPO / "config")
+    scene = load_scene(REPO / "planner" / "demo" / "pick-place-magazines.yaml", settings)
+    result = plan_scene(scene, settings.in_units(scene.units))
+    zone, label = _zones_to_draw(result)
+    assert "every leg" in label
+    gone = [o for o in scene.obstacles if o.until]
+    assert gone
+    clear = 0
+    for o in gone:
+        shape = shapely.Polygon(o.polygon) if o.polygon else shapely.Point(
+            o.circle.center).buffer(o.circle.radius)
+        inside = shapely.point_on_surface(shape)
+        # shapely as the reference: the first leg's zone (magazine still there) covers the
+        # magazine's own inside; the every-leg zone does not, where nothing that stays is
+        # within the head's reach plus the margin of it.
+        assert shapely.intersects(result.free.blocked, inside)
+        staying = [p for p in scene.obstacles if not p.until and not p.after]
+        reach = max(np.hypot(*np.asarray(scene.head.footprint, dtype=float).T)) \
+            + scene.head.margin
+        near = any(shapely.distance(shapely.Polygon(p.polygon) if p.polygon else shapely.Point(
+            p.circle.center).buffer(p.circle.radius), inside) <= reach for p in staying)
+        if not near:
+            clear += 1
+            assert not shapely.intersects(zone, inside)
+    assert clear > 0  # at least one magazine stands clear of everything that stays
+    out = tmp_path / "out"
+    out.mkdir()
+    outcome = run_job(REPO / "planner" / "demo" / "pick-place-magazines.yaml", out, settings)
+    assert outcome.exit_code in (0, 3), outcome.message
+    page = (out / "pick-place-magazines.html").read_text(encoding="utf-8")
+    assert "no-go zone on every leg" in page
