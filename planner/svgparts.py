@@ -76,8 +76,8 @@ def ring_path(frame: Frame, coords: Iterable[Sequence[float]]) -> str:
     """A closed SVG path; runs of vertices inside one quarter pixel are drawn as one."""
     xy = frame.many(np.asarray(coords if isinstance(coords, np.ndarray) else list(coords),
                                dtype=float))
-    if len(xy) and np.allclose(xy[0], xy[-1]):
-        xy = xy[:-1]
+    if len(xy) > 1 and abs(xy[0, 0] - xy[-1, 0]) <= 1e-6 and abs(xy[0, 1] - xy[-1, 1]) <= 1e-6:
+        xy = xy[:-1]  # closed by repeating the first vertex (page pixels: 1e-6 is nothing)
     if len(xy) > 8:
         cells = np.round(xy * 4.0)
         keep = np.ones(len(xy), dtype=bool)
