@@ -60,12 +60,10 @@ class OutLock:
         mine = os.fstat(self._fd)
         return (on_disk.st_dev, on_disk.st_ino) != (mine.st_dev, mine.st_ino)
 
-    def keep(self) -> str | None:
-        """Take the lock again if its file went (the folder made again if need be); None when
-        it is ours, else the pid of the daemon that took it meanwhile. OSError if OUT cannot be
-        made or written."""
-        if not self.held_file_is_gone():
-            return None
+    def retake(self) -> str | None:
+        """Take the lock on a new file after the old one went (the folder made again if need
+        be); None when it is ours, else the pid of the daemon that took it meanwhile. OSError if
+        OUT cannot be made or written."""
         self.out.mkdir(parents=True, exist_ok=True)
         return self.take()
 

@@ -346,7 +346,7 @@ class Watcher:
             return
         try:
             gone = self.lock.held_file_is_gone()
-            other = self.lock.keep() if gone else None
+            other = self.lock.retake() if gone else None
         except OSError as exc:
             problem = f"cannot lock {self.lock.path} again ({exc.strerror or exc})"
             if problem != self._lock_problem:
