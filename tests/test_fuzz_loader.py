@@ -48,24 +48,16 @@ def assert_clear(err: SceneError | ConfigError, name: str) -> None:
     assert err.message and clear_message(text, name), text
 
 
+@pytest.mark.parametrize("kind", ["bytes", "structure"])
 @FAST
-@given(st.integers(0, 2**31))
-def test_mutated_bytes_give_a_scene_or_one_clear_scene_error(seed):
-    c = case("bytes", seed)
+@given(seed=st.integers(0, 2**31))
+def test_mutated_input_gives_a_scene_or_one_clear_scene_error(kind, seed):
+    c = case(kind, seed)
     result = load_or_error(c.data, c.name)
     if isinstance(result, SceneError):
         assert_clear(result, c.name)
     else:
         assert isinstance(result, Scene)
-
-
-@FAST
-@given(st.integers(0, 2**31))
-def test_mutated_structures_give_a_scene_or_one_clear_scene_error(seed):
-    c = case("structure", seed)
-    result = load_or_error(c.data, c.name)
-    if isinstance(result, SceneError):
-        assert_clear(result, c.name)
 
 
 @FAST
